@@ -1,0 +1,1 @@
+//! Readers and writers for dense CSV, plain vectors and Matrix Market files.
