@@ -1,8 +1,16 @@
 //! ellone: Newton coordinate descent for ℓ1-penalised smooth convex problems.
 #![deny(missing_docs)]
 
+pub mod design;
 pub mod error;
-pub mod linalg;
 pub mod io;
+pub mod linalg;
+pub mod loss;
+pub mod penalty;
+pub mod solver;
 
+pub use design::Design;
 pub use error::{Error, Result};
+pub use loss::{LeastSquares, Logistic, Loss};
+pub use penalty::Penalty;
+pub use solver::{NewtonCd, Solution, Solver, SolverOptions, Status};

@@ -1,0 +1,138 @@
+//! Data shared by the losses on a linear predictor η = X b + b₀ (least squares, logistic).
+//!
+//! Coordinates are laid out as `[b_0, …, b_{p−1}, b₀]`: the p feature coefficients, then the
+//! intercept when one is fitted. The intercept behaves as an extra all-ones column that is
+//! never penalised.
+
+use crate::design::Design;
+use crate::error::{check_finite, Error, Result};
+
+/// A design matrix, a response and the intercept flag.
+#[derive(Debug, Clone)]
+pub(crate) struct LinearData {
+    pub(crate) x: Design,
+    pub(crate) y: Vec<f64>,
+    pub(crate) intercept: bool,
+    /// ‖x_k‖² per coordinate (n for the intercept).
+    pub(crate) col_sq: Vec<f64>,
+}
+
+impl LinearData {
+    pub(crate) fn new(x: Design, y: Vec<f64>, intercept: bool) -> Result<Self> {
+        if y.len() != x.nrows() {
+            return Err(Error::ShapeMismatch {
+                what: "rows of x vs length of y".into(),
+                expected: x.nrows().to_string(),
+                found: y.len().to_string(),
+            });
+        }
+        check_finite("y", &y, |i| format!("row {i}"))?;
+        let mut col_sq: Vec<f64> = (0..x.ncols()).map(|j| x.col_sq_norm(j)).collect();
+        if intercept {
+            col_sq.push(x.nrows() as f64);
+        }
+        Ok(Self {
+            x,
+            y,
+            intercept,
+            col_sq,
+        })
+    }
+
+    pub(crate) fn n(&self) -> usize {
+        self.x.nrows()
+    }
+
+    pub(crate) fn p(&self) -> usize {
+        self.x.ncols()
+    }
+
+    pub(crate) fn dim(&self) -> usize {
+        self.p() + usize::from(self.intercept)
+    }
+
+    pub(crate) fn is_intercept(&self, k: usize) -> bool {
+        self.intercept && k == self.p()
+    }
+
+    /// η = X b + b₀.
+    pub(crate) fn eta(&self, coef: &[f64]) -> Vec<f64> {
+        let mut eta = vec![0.0; self.n()];
+        let p = self.p();
+        self.x.matvec(&coef[..p], &mut eta);
+        if self.intercept && coef[p] != 0.0 {
+            eta.iter_mut().for_each(|e| *e += coef[p]);
+        }
+        eta
+    }
+
+    /// x_kᵀ v (Σ v for the intercept).
+    #[inline]
+    pub(crate) fn col_dot(&self, k: usize, v: &[f64]) -> f64 {
+        if self.is_intercept(k) {
+            v.iter().sum()
+        } else {
+            self.x.col_dot(k, v)
+        }
+    }
+
+    /// Σ_i x_ik w_i v_i.
+    #[inline]
+    pub(crate) fn col_dot_weighted(&self, k: usize, w: &[f64], v: &[f64]) -> f64 {
+        if self.is_intercept(k) {
+            w.iter().zip(v).map(|(a, b)| a * b).sum()
+        } else {
+            self.x.col_dot_weighted(k, w, v)
+        }
+    }
+
+    /// Σ_i w_i x_ik².
+    #[inline]
+    pub(crate) fn col_weighted_sq(&self, k: usize, w: &[f64]) -> f64 {
+        if self.is_intercept(k) {
+            w.iter().sum()
+        } else {
+            self.x.col_weighted_sq(k, w)
+        }
+    }
+
+    /// v ← v + a x_k.
+    #[inline]
+    pub(crate) fn col_axpy(&self, k: usize, a: f64, v: &mut [f64]) {
+        if self.is_intercept(k) {
+            v.iter_mut().for_each(|e| *e += a);
+        } else {
+            self.x.col_axpy(k, a, v);
+        }
+    }
+
+    /// out_k ← x_kᵀ v for every coordinate (one pass over the data).
+    pub(crate) fn tmatvec(&self, v: &[f64], out: &mut [f64]) {
+        let p = self.p();
+        self.x.tmatvec(v, &mut out[..p]);
+        if self.intercept {
+            out[p] = v.iter().sum();
+        }
+    }
+
+    /// The largest feasible scaling s ∈ [0, 1] of a dual direction with correlations
+    /// `corr_k` (one per feature, excluding the intercept): s·|corr_k| ≤ λ_k. Returns `None`
+    /// when an unpenalised feature has a non-zero correlation (no scaling makes it feasible).
+    pub(crate) fn dual_scale(&self, corr: &[f64], l1: &[f64]) -> Option<f64> {
+        let mut s = 1.0f64;
+        for (j, &c) in corr.iter().enumerate().take(self.p()) {
+            let a = c.abs();
+            if a == 0.0 {
+                continue;
+            }
+            if l1[j] == 0.0 {
+                if a > 1e-12 {
+                    return None;
+                }
+                continue;
+            }
+            s = s.min(l1[j] / a);
+        }
+        Some(s)
+    }
+}

@@ -1,0 +1,288 @@
+//! Logistic regression: f(b, b₀) = (1/n) Σ_i [log(1 + e^{η_i}) − y_i η_i], η = Xb + b₀,
+//! y_i ∈ {0, 1}.
+//!
+//! With π_i = σ(η_i) = 1/(1 + e^{−η_i}) and w_i = π_i(1 − π_i):
+//!
+//! * gradient: ∂f/∂b_k = x_kᵀ(π − y)/n;
+//! * Hessian: H = Xᵀ diag(w) X / n, so H_kk = Σ_i w_i x_ik²/n (computed on first use per
+//!   outer iteration) and, keeping u = Xd, (Hd)_k = Σ_i x_ik w_i u_i / n;
+//! * line search: f(x + αd) = (1/n) Σ softplus(η_i + αu_i) − y_i(η_i + αu_i), O(n).
+//!
+//! Numerical stability: softplus(η) = max(η, 0) + log1p(e^{−|η|}) and
+//! σ(η) = 1/(1 + e^{−η}) for η ≥ 0, e^{η}/(1 + e^{η}) otherwise, so |η| up to 1e3 (and
+//! beyond) neither overflows nor loses the small terms.
+//!
+//! **Duality gap.** The dual is max_u −(1/n) Σ_i h(u_i), h(u) = u log u + (1−u) log(1−u),
+//! over u ∈ [0,1]^n with |x_jᵀ(y − u)|/n ≤ λ_j (and Σ_i (y_i − u_i) = 0 with an intercept);
+//! u* = π*. From an iterate, u = y − s·ρ̃ with ρ = y − π (centred when there is an
+//! intercept) and s ∈ [0,1] the largest scaling that keeps u feasible.
+
+use super::glm::LinearData;
+use super::{LocalModel, Loss};
+use crate::design::Design;
+use crate::error::{Error, Result};
+use crate::penalty::ResolvedPenalty;
+use ndarray::ArrayView2;
+use sprs::CsMat;
+
+/// log(1 + e^η) without overflow or cancellation.
+#[inline]
+pub fn softplus(eta: f64) -> f64 {
+    eta.max(0.0) + (-eta.abs()).exp().ln_1p()
+}
+
+/// The logistic function σ(η) = 1/(1 + e^{−η}), stable for any finite η.
+#[inline]
+pub fn sigmoid(eta: f64) -> f64 {
+    if eta >= 0.0 {
+        1.0 / (1.0 + (-eta).exp())
+    } else {
+        let e = eta.exp();
+        e / (1.0 + e)
+    }
+}
+
+/// u log u + (1 − u) log(1 − u), with 0 log 0 = 0.
+fn neg_entropy(u: f64) -> f64 {
+    let t = |v: f64| if v > 0.0 { v * v.ln() } else { 0.0 };
+    t(u) + t(1.0 - u)
+}
+
+/// The logistic loss on dense or sparse data, with an optional intercept.
+#[derive(Debug, Clone)]
+pub struct Logistic {
+    data: LinearData,
+}
+
+impl Logistic {
+    /// Logistic regression of labels `y` ∈ {0,1} on `x`; `intercept` adds an unpenalised b₀
+    /// (the last coordinate).
+    ///
+    /// # Errors
+    /// [`Error::InvalidLabel`] for a label other than 0 or 1, plus the errors of
+    /// [`crate::loss::LeastSquares::new`].
+    pub fn new(x: Design, y: Vec<f64>, intercept: bool) -> Result<Self> {
+        let data = LinearData::new(x, y, intercept)?;
+        if let Some((row, &value)) = data
+            .y
+            .iter()
+            .enumerate()
+            .find(|(_, &v)| v != 0.0 && v != 1.0)
+        {
+            return Err(Error::InvalidLabel { row, value });
+        }
+        Ok(Self { data })
+    }
+
+    /// From a dense array (any layout).
+    ///
+    /// # Errors
+    /// As [`Design::dense`] and [`Logistic::new`].
+    pub fn from_dense(x: ArrayView2<f64>, y: &[f64], intercept: bool) -> Result<Self> {
+        Self::new(Design::dense(x)?, y.to_vec(), intercept)
+    }
+
+    /// From a sparse matrix (kept sparse).
+    ///
+    /// # Errors
+    /// As [`Design::sparse`] and [`Logistic::new`].
+    pub fn from_sparse(x: CsMat<f64>, y: &[f64], intercept: bool) -> Result<Self> {
+        Self::new(Design::sparse(x)?, y.to_vec(), intercept)
+    }
+
+    /// The design matrix.
+    pub fn design(&self) -> &Design {
+        &self.data.x
+    }
+
+    /// The labels.
+    pub fn labels(&self) -> &[f64] {
+        &self.data.y
+    }
+
+    /// Whether an intercept is fitted.
+    pub fn has_intercept(&self) -> bool {
+        self.data.intercept
+    }
+
+    /// Splits a coordinate vector into (coefficients b, intercept b₀ or 0).
+    pub fn split<'s>(&self, x: &'s [f64]) -> (&'s [f64], f64) {
+        let p = self.data.p();
+        (&x[..p], if self.data.intercept { x[p] } else { 0.0 })
+    }
+
+    fn value_at_eta(&self, eta: &[f64]) -> f64 {
+        let s: f64 = eta
+            .iter()
+            .zip(&self.data.y)
+            .map(|(&e, &y)| softplus(e) - y * e)
+            .sum();
+        s / eta.len() as f64
+    }
+
+    fn gradient_at_eta(&self, eta: &[f64], g: &mut [f64]) {
+        let resid: Vec<f64> = eta
+            .iter()
+            .zip(&self.data.y)
+            .map(|(&e, &y)| sigmoid(e) - y)
+            .collect();
+        self.data.tmatvec(&resid, g);
+        let n = eta.len() as f64;
+        g.iter_mut().for_each(|v| *v /= n);
+    }
+}
+
+impl Loss for Logistic {
+    fn dim(&self) -> usize {
+        self.data.dim()
+    }
+
+    fn name(&self) -> &str {
+        "logistic"
+    }
+
+    fn value(&self, x: &[f64]) -> Option<f64> {
+        Some(self.value_at_eta(&self.data.eta(x)))
+    }
+
+    fn gradient(&self, x: &[f64], g: &mut [f64]) {
+        self.gradient_at_eta(&self.data.eta(x), g);
+    }
+
+    fn hess_vec(&self, x: &[f64], v: &[f64], out: &mut [f64]) {
+        let eta = self.data.eta(x);
+        let mut u = self.data.eta(v);
+        for (ui, &e) in u.iter_mut().zip(&eta) {
+            let p = sigmoid(e);
+            *ui *= p * (1.0 - p);
+        }
+        self.data.tmatvec(&u, out);
+        let n = eta.len() as f64;
+        out.iter_mut().for_each(|o| *o /= n);
+    }
+
+    fn penalty_factor(&self, k: usize) -> f64 {
+        if self.data.is_intercept(k) {
+            0.0
+        } else {
+            1.0
+        }
+    }
+
+    fn duality_gap(&self, x: &[f64], pen: &ResolvedPenalty) -> Option<f64> {
+        if pen.l2.iter().any(|&v| v > 0.0) {
+            return None;
+        }
+        let n = self.data.n() as f64;
+        let p = self.data.p();
+        let eta = self.data.eta(x);
+        let mut rho: Vec<f64> = eta
+            .iter()
+            .zip(&self.data.y)
+            .map(|(&e, &y)| y - sigmoid(e))
+            .collect();
+        if self.data.intercept {
+            let mean = rho.iter().sum::<f64>() / n;
+            rho.iter_mut().for_each(|v| *v -= mean);
+        }
+        let mut corr = vec![0.0; p];
+        self.data.x.tmatvec(&rho, &mut corr);
+        corr.iter_mut().for_each(|c| *c /= n);
+        let mut s = self.data.dual_scale(&corr, &pen.l1)?;
+        // Keep u = y − sρ inside [0, 1].
+        for (&r, &y) in rho.iter().zip(&self.data.y) {
+            let ok_sign = if y == 1.0 { r >= 0.0 } else { r <= 0.0 };
+            if !ok_sign {
+                s = 0.0;
+                break;
+            }
+            if r != 0.0 {
+                s = s.min(1.0 / r.abs());
+            }
+        }
+        let dual = -rho
+            .iter()
+            .zip(&self.data.y)
+            .map(|(&r, &y)| neg_entropy(y - s * r))
+            .sum::<f64>()
+            / n;
+        let primal = self.value_at_eta(&eta) + pen.value(x);
+        Some(primal - dual)
+    }
+
+    fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
+        let eta = self.data.eta(x);
+        let n = eta.len();
+        let mut g = vec![0.0; self.dim()];
+        self.gradient_at_eta(&eta, &mut g);
+        let w = eta
+            .iter()
+            .map(|&e| {
+                let p = sigmoid(e);
+                p * (1.0 - p)
+            })
+            .collect();
+        Ok(Box::new(LogisticModel {
+            loss: self,
+            f: self.value_at_eta(&eta),
+            eta,
+            g,
+            w,
+            curv: vec![f64::NAN; self.dim()],
+            u: vec![0.0; n],
+            inv_n: 1.0 / n as f64,
+        }))
+    }
+}
+
+/// Local model of the logistic loss at η (Newton's quadratic model plus exact line values).
+struct LogisticModel<'a> {
+    loss: &'a Logistic,
+    eta: Vec<f64>,
+    f: f64,
+    g: Vec<f64>,
+    /// IRLS weights π(1 − π).
+    w: Vec<f64>,
+    /// H_kk, NaN until first computed.
+    curv: Vec<f64>,
+    /// u = [X 1] d.
+    u: Vec<f64>,
+    inv_n: f64,
+}
+
+impl LocalModel for LogisticModel<'_> {
+    fn value(&self) -> f64 {
+        self.f
+    }
+    fn gradient(&self) -> &[f64] {
+        &self.g
+    }
+    fn curvature(&mut self, k: usize) -> f64 {
+        if self.curv[k].is_nan() {
+            self.curv[k] = self.loss.data.col_weighted_sq(k, &self.w) * self.inv_n;
+        }
+        self.curv[k]
+    }
+    fn hd(&mut self, k: usize) -> f64 {
+        self.loss.data.col_dot_weighted(k, &self.w, &self.u) * self.inv_n
+    }
+    fn step(&mut self, k: usize, delta: f64) {
+        self.loss.data.col_axpy(k, delta, &mut self.u);
+    }
+    fn clear(&mut self) {
+        self.u.iter_mut().for_each(|v| *v = 0.0);
+    }
+    fn value_along(&mut self, alpha: f64) -> Option<f64> {
+        let s: f64 = self
+            .eta
+            .iter()
+            .zip(&self.u)
+            .zip(&self.loss.data.y)
+            .map(|((&e, &u), &y)| {
+                let t = e + alpha * u;
+                softplus(t) - y * t
+            })
+            .sum();
+        Some(s * self.inv_n)
+    }
+}

@@ -1,0 +1,140 @@
+//! Smooth convex losses f(x) and the trait the solvers are generic over.
+//!
+//! A solver minimises F(x) = f(x) + P(x), with P the weighted ℓ1 (+ℓ2) penalty of
+//! [`crate::penalty`]. A loss owns its data and answers, at a point x of its domain:
+//!
+//! * [`Loss::value`] f(x), or `None` outside the domain (e.g. a matrix that is not positive
+//!   definite);
+//! * [`Loss::gradient`] ∇f(x);
+//! * [`Loss::hess_vec`] ∇²f(x)·v.
+//!
+//! Those three methods are all a downstream loss needs: the provided
+//! [`Loss::local_model`] builds a [`LocalModel`] from Hessian-vector products (correct but
+//! slow). A loss gets fast by overriding `local_model` with cached products, so that a
+//! coordinate update and the line search cost O(n) or less instead of a full pass.
+//! [`check_derivatives`] verifies a new loss by finite differences.
+
+mod check;
+mod hessvec_model;
+
+pub use check::{check_derivatives, DerivativeReport};
+pub use hessvec_model::HessVecModel;
+
+use crate::error::Result;
+use crate::penalty::ResolvedPenalty;
+
+/// A smooth convex loss over R^m (m = [`Loss::dim`]).
+pub trait Loss: Send + Sync {
+    /// Number of coordinates m.
+    fn dim(&self) -> usize;
+
+    /// f(x), or `None` if x is outside the domain of f.
+    fn value(&self, x: &[f64]) -> Option<f64>;
+
+    /// Writes ∇f(x) into `g` (length m). Only called at points of the domain.
+    fn gradient(&self, x: &[f64], g: &mut [f64]);
+
+    /// Writes ∇²f(x)·v into `out` (length m). Only called at points of the domain.
+    fn hess_vec(&self, x: &[f64], v: &[f64], out: &mut [f64]);
+
+    /// A short name used in reports ("least-squares", "logistic", ...).
+    fn name(&self) -> &str {
+        "custom"
+    }
+
+    /// Structural factor c_k of the penalty on coordinate k: λ_k = λ·w_k·c_k. Default 1.
+    /// Return 0 for coordinates that are never penalised (an intercept), 2 for an
+    /// off-diagonal entry of a symmetric matrix stored once (it appears twice in Σ_{i≠j}).
+    fn penalty_factor(&self, _k: usize) -> f64 {
+        1.0
+    }
+
+    /// Multiplier applied to coordinate k's KKT residual so that it is reported in the
+    /// problem's own convention (default 1; ½ for a symmetric pair stored once, whose
+    /// coordinate gradient is twice the matrix gradient entry).
+    fn residual_scale(&self, _k: usize) -> f64 {
+        1.0
+    }
+
+    /// The default starting point (zeros; a log-det loss starts from a positive-definite
+    /// diagonal).
+    fn start(&self) -> Vec<f64> {
+        vec![0.0; self.dim()]
+    }
+
+    /// The duality gap F(x) − D(u) at x for a dual-feasible u built from x, where a clean
+    /// dual exists; `None` otherwise (the default).
+    fn duality_gap(&self, _x: &[f64], _penalty: &ResolvedPenalty) -> Option<f64> {
+        None
+    }
+
+    /// The smallest λ for which x = [`Loss::start`]-with-penalised-coordinates-zero is
+    /// optimal, where the loss knows it (used for grids and scales).
+    fn lambda_max(&self, _penalty: &ResolvedPenalty) -> Option<f64> {
+        None
+    }
+
+    /// The local model at x used by Newton coordinate descent. The default is built from
+    /// [`Loss::value`], [`Loss::gradient`] and [`Loss::hess_vec`]; override it with cached
+    /// products to make the inner loop fast.
+    ///
+    /// # Errors
+    /// An error if x is outside the domain.
+    fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
+        Ok(Box::new(HessVecModel::new(self, x)?))
+    }
+}
+
+/// The second-order model of f around a point x, with a search direction d that the
+/// coordinate-descent inner loop builds one coordinate at a time.
+///
+/// q(d) = f(x) + gᵀd + ½ dᵀHd; the inner loop needs H_kk and (Hd)_k cheaply and updates d
+/// through [`LocalModel::step`] so the implementation can keep products such as Xd current.
+pub trait LocalModel {
+    /// f(x).
+    fn value(&self) -> f64;
+    /// ∇f(x).
+    fn gradient(&self) -> &[f64];
+    /// H_kk, the curvature along coordinate k (≥ 0).
+    fn curvature(&mut self, k: usize) -> f64;
+    /// (H d)_k for the current direction d.
+    fn hd(&mut self, k: usize) -> f64;
+    /// d_k ← d_k + delta, updating cached products.
+    fn step(&mut self, k: usize, delta: f64);
+    /// Resets d to exactly zero.
+    fn clear(&mut self);
+    /// f(x + α d) for the current direction d, or `None` outside the domain. Should reuse
+    /// cached products (the line search calls it several times per iteration).
+    fn value_along(&mut self, alpha: f64) -> Option<f64>;
+    /// The dense block H_AA (row-major, |A|×|A|) for a small index set A, used by the
+    /// driver's subspace Newton step. The default reads it off [`LocalModel::hd`] by
+    /// stepping along unit vectors (|A| steps and |A|² reads); it leaves d = 0.
+    fn hessian_block(&mut self, idx: &[usize]) -> Vec<f64> {
+        let m = idx.len();
+        let mut h = vec![0.0; m * m];
+        self.clear();
+        for (a, &k) in idx.iter().enumerate() {
+            self.step(k, 1.0);
+            for (b, &j) in idx.iter().enumerate() {
+                h[b * m + a] = self.hd(j);
+            }
+            self.clear();
+        }
+        // Symmetrise rounding differences.
+        for a in 0..m {
+            for b in 0..a {
+                let v = 0.5 * (h[a * m + b] + h[b * m + a]);
+                h[a * m + b] = v;
+                h[b * m + a] = v;
+            }
+        }
+        h
+    }
+}
+
+mod glm;
+pub mod least_squares;
+pub mod logistic;
+
+pub use least_squares::LeastSquares;
+pub use logistic::Logistic;
