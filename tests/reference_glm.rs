@@ -34,8 +34,8 @@ fn longley_certified_coefficients() {
     };
     let mut worst = 16.0f64;
     worst = worst.min(significant_digits(b0, value("b0")));
-    for j in 0..6 {
-        worst = worst.min(significant_digits(b[j], value(&format!("b{}", j + 1))));
+    for (j, &bj) in b.iter().enumerate() {
+        worst = worst.min(significant_digits(bj, value(&format!("b{}", j + 1))));
     }
     println!(
         "Longley: status {:?}, worst agreement {worst:.2} digits",
@@ -102,6 +102,6 @@ fn macrodata_lasso_fixtures() {
             assert_eq!(b[j] == 0.0, row[8 + j] == 0.0, "support differs at {j}");
         }
         let gap = sol.duality_gap.unwrap();
-        assert!(gap >= -1e-12 && gap <= 1e-7, "gap {gap}");
+        assert!((-1e-12..=1e-7).contains(&gap), "gap {gap}");
     }
 }
