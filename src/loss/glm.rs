@@ -115,6 +115,13 @@ impl LinearData {
         }
     }
 
+    /// out_k ← x_kᵀ v for the coordinates in `subset` only (others untouched).
+    pub(crate) fn tmatvec_subset(&self, v: &[f64], subset: &[usize], out: &mut [f64]) {
+        for &k in subset {
+            out[k] = self.col_dot(k, v);
+        }
+    }
+
     /// The largest feasible scaling s ∈ [0, 1] of a dual direction with correlations
     /// `corr_k` (one per feature, excluding the intercept): s·|corr_k| ≤ λ_k. Returns `None`
     /// when an unpenalised feature has a non-zero correlation (no scaling makes it feasible).

@@ -119,6 +119,14 @@ impl Loss for LeastSquares {
         out.iter_mut().for_each(|o| *o /= n);
     }
 
+    fn structure(&self) -> Option<super::LossStructure<'_>> {
+        Some(super::LossStructure::LeastSquares {
+            design: &self.data.x,
+            y: &self.data.y,
+            intercept: self.data.intercept,
+        })
+    }
+
     fn penalty_factor(&self, k: usize) -> f64 {
         if self.data.is_intercept(k) {
             0.0
@@ -151,10 +159,31 @@ impl Loss for LeastSquares {
     }
 
     fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
+        self.model(x, None)
+    }
+
+    fn local_model_subset<'a>(
+        &'a self,
+        x: &[f64],
+        subset: &[usize],
+    ) -> Result<Box<dyn LocalModel + 'a>> {
+        self.model(x, Some(subset))
+    }
+}
+
+impl LeastSquares {
+    fn model<'a>(
+        &'a self,
+        x: &[f64],
+        subset: Option<&[usize]>,
+    ) -> Result<Box<dyn LocalModel + 'a>> {
         let r = self.residual(x);
         let n = self.data.n() as f64;
         let mut g = vec![0.0; self.dim()];
-        self.data.tmatvec(&r, &mut g);
+        match subset {
+            Some(s) => self.data.tmatvec_subset(&r, s, &mut g),
+            None => self.data.tmatvec(&r, &mut g),
+        }
         g.iter_mut().for_each(|v| *v = -*v / n);
         Ok(Box::new(LsModel {
             data: &self.data,

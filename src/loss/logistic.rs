@@ -211,10 +211,39 @@ impl Loss for Logistic {
     }
 
     fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
+        self.model(x, None)
+    }
+
+    fn local_model_subset<'a>(
+        &'a self,
+        x: &[f64],
+        subset: &[usize],
+    ) -> Result<Box<dyn LocalModel + 'a>> {
+        self.model(x, Some(subset))
+    }
+}
+
+impl Logistic {
+    fn model<'a>(
+        &'a self,
+        x: &[f64],
+        subset: Option<&[usize]>,
+    ) -> Result<Box<dyn LocalModel + 'a>> {
         let eta = self.data.eta(x);
         let n = eta.len();
         let mut g = vec![0.0; self.dim()];
-        self.gradient_at_eta(&eta, &mut g);
+        match subset {
+            Some(s) => {
+                let resid: Vec<f64> = eta
+                    .iter()
+                    .zip(&self.data.y)
+                    .map(|(&e, &y)| sigmoid(e) - y)
+                    .collect();
+                self.data.tmatvec_subset(&resid, s, &mut g);
+                g.iter_mut().for_each(|v| *v /= n as f64);
+            }
+            None => self.gradient_at_eta(&eta, &mut g),
+        }
         let w = eta
             .iter()
             .map(|&e| {

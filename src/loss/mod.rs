@@ -16,9 +16,11 @@
 
 mod check;
 mod hessvec_model;
+mod structure;
 
 pub use check::{check_derivatives, DerivativeReport};
 pub use hessvec_model::HessVecModel;
+pub use structure::LossStructure;
 
 use crate::error::Result;
 use crate::penalty::ResolvedPenalty;
@@ -82,6 +84,27 @@ pub trait Loss: Send + Sync {
     /// An error if x is outside the domain.
     fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
         Ok(Box::new(HessVecModel::new(self, x)?))
+    }
+
+    /// Structural information for solvers with closed-form steps (see [`LossStructure`]);
+    /// `None` (the default) when the loss does not expose any.
+    fn structure(&self) -> Option<LossStructure<'_>> {
+        None
+    }
+
+    /// A local model whose gradient is only needed on the coordinates in `subset` (entries
+    /// outside it may be left at zero). Screening along a regularisation path uses it so a
+    /// solve on a small working set does not pay for a full gradient pass each iteration.
+    /// The default computes the full model.
+    ///
+    /// # Errors
+    /// An error if x is outside the domain.
+    fn local_model_subset<'a>(
+        &'a self,
+        x: &[f64],
+        _subset: &[usize],
+    ) -> Result<Box<dyn LocalModel + 'a>> {
+        self.local_model(x)
     }
 }
 

@@ -13,9 +13,16 @@
 //! lasso s = λ_max when no coordinate is unpenalised). Non-convergence is a [`Status`], never
 //! an error, and the returned point is the best iterate found.
 
+pub mod admm;
+mod baseline;
+pub mod fista;
 pub mod newton_cd;
+pub mod owlqn;
 
-pub use newton_cd::NewtonCd;
+pub use admm::Admm;
+pub use fista::Fista;
+pub use newton_cd::{NewtonCd, WorkingSet};
+pub use owlqn::Owlqn;
 
 use crate::error::{Error, Result};
 use crate::loss::Loss;
@@ -235,6 +242,14 @@ pub fn certify(
     ))
 }
 
+/// max(1, ‖∇f(x₀)‖∞) at the loss's default start x₀: the scale of the relative KKT test.
+pub fn gradient_scale(loss: &dyn Loss) -> f64 {
+    let x0 = loss.start();
+    let mut g = vec![0.0; x0.len()];
+    loss.gradient(&x0, &mut g);
+    g.iter().fold(1.0f64, |a, v| a.max(v.abs()))
+}
+
 /// Shared bookkeeping for one solve: clock, limits, trace, observer, best iterate.
 pub(crate) struct Run<'o> {
     pub(crate) start: Instant,
@@ -249,12 +264,26 @@ pub(crate) struct Run<'o> {
 
 impl<'o> Run<'o> {
     /// Validates the inputs and fixes the absolute KKT threshold tol·max(1, ‖∇f(x₀)‖∞).
+    #[allow(dead_code)] // used by the baseline solvers
     pub(crate) fn new(
         loss: &dyn Loss,
         penalty: &Penalty,
         start: Option<&[f64]>,
         opts: &SolverOptions,
         observer: Option<&'o mut dyn Observer>,
+    ) -> Result<(Self, ResolvedPenalty, Vec<f64>)> {
+        Self::with_scale(loss, penalty, start, opts, observer, None)
+    }
+
+    /// As [`Run::new`], with the gradient scale ‖∇f(x₀)‖∞ supplied by the caller (a path
+    /// solver computes it once instead of once per λ).
+    pub(crate) fn with_scale(
+        loss: &dyn Loss,
+        penalty: &Penalty,
+        start: Option<&[f64]>,
+        opts: &SolverOptions,
+        observer: Option<&'o mut dyn Observer>,
+        known_scale: Option<f64>,
     ) -> Result<(Self, ResolvedPenalty, Vec<f64>)> {
         opts.validate()?;
         let m = loss.dim();
@@ -279,9 +308,10 @@ impl<'o> Run<'o> {
             }
             None => x0.clone(),
         };
-        let mut g = vec![0.0; m];
-        loss.gradient(&x0, &mut g);
-        let scale = g.iter().fold(1.0f64, |a, v| a.max(v.abs()));
+        let scale = match known_scale {
+            Some(s) => s.max(1.0),
+            None => gradient_scale(loss),
+        };
         let run = Run {
             start: Instant::now(),
             trace: Vec::new(),

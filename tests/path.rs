@@ -1,0 +1,96 @@
+//! Regularisation paths: exactness of screening and warm starts.
+
+mod common;
+
+use common::*;
+use ellone::path::{fit_path, lambda_max, PathOptions};
+use ellone::solver::{NewtonCd, Solver, SolverOptions};
+use ellone::{LeastSquares, Logistic, Loss, Penalty};
+use ndarray::s;
+
+/// λ_max of the macrodata lasso fixture is max_j |x_jᵀ(y − ȳ)|/n = 0.33459966836940674
+/// (tests/data/README.md, computed independently by the fixture generator).
+#[test]
+fn lambda_max_matches_fixture() {
+    let (_, x) = read_numeric_table("macrodata-lasso-X.csv");
+    let (_, y) = read_numeric_table("macrodata-lasso-y.csv");
+    let loss = LeastSquares::from_dense(x.view(), y.column(0).as_slice().unwrap(), true).unwrap();
+    let lmax = lambda_max(&loss, &Penalty::l1(1.0).unwrap()).unwrap();
+    assert!((lmax - 0.33459966836940674).abs() < 1e-12, "{lmax}");
+}
+
+fn check_path(loss: &dyn Loss, shape: (usize, usize), n_lambdas: usize) {
+    let pen = Penalty::l1(1.0).unwrap();
+    let opts = PathOptions {
+        n_lambdas,
+        ..Default::default()
+    };
+    let path = fit_path(loss, &pen, shape, &opts).unwrap();
+    let unscreened = fit_path(
+        loss,
+        &pen,
+        shape,
+        &PathOptions {
+            screening: false,
+            ..opts.clone()
+        },
+    )
+    .unwrap();
+    let tol_abs = 1e-7 * ellone::solver::gradient_scale(loss);
+    let cold = NewtonCd::new(SolverOptions {
+        tol: 1e-10,
+        ..Default::default()
+    });
+    for (p, q) in path.points.iter().zip(&unscreened.points) {
+        // KKT over all coordinates at every point.
+        assert!(
+            p.kkt_residual <= tol_abs,
+            "kkt {} at λ={}",
+            p.kkt_residual,
+            p.lambda
+        );
+        // Screening changes no answer.
+        assert!(
+            (p.objective - q.objective).abs() <= 1e-10 * p.objective.abs().max(1.0),
+            "screened {} vs unscreened {}",
+            p.objective,
+            q.objective
+        );
+        // Equals a cold-start solve at that λ.
+        let c = cold
+            .solve(loss, &pen.with_lambda(p.lambda).unwrap())
+            .unwrap();
+        assert!(
+            (p.objective - c.objective).abs() <= 1e-8 * c.objective.abs().max(1e-300),
+            "path {} vs cold {} at λ={}",
+            p.objective,
+            c.objective,
+            p.lambda
+        );
+    }
+    // The first point is all-zero in the penalised coordinates.
+    assert!(path.points[0]
+        .x
+        .indices
+        .iter()
+        .all(|&k| loss.penalty_factor(k) == 0.0));
+}
+
+/// Macrodata lasso (tests/data): path points satisfy KKT and match cold starts.
+#[test]
+fn lasso_path_is_exact() {
+    let (_, x) = read_numeric_table("macrodata-lasso-X.csv");
+    let (_, y) = read_numeric_table("macrodata-lasso-y.csv");
+    let loss = LeastSquares::from_dense(x.view(), y.column(0).as_slice().unwrap(), true).unwrap();
+    check_path(&loss, (203, 11), 40);
+}
+
+/// Spector data (tests/data), ℓ1-logistic path.
+#[test]
+fn logistic_path_is_exact() {
+    let (_, data) = read_numeric_table("spector.csv");
+    let x = data.slice(s![.., 0..3]).to_owned();
+    let y: Vec<f64> = data.column(3).to_vec();
+    let loss = Logistic::from_dense(x.view(), &y, true).unwrap();
+    check_path(&loss, (32, 3), 30);
+}
