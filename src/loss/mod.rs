@@ -158,6 +158,7 @@ pub trait LocalModel {
 mod glm;
 pub mod least_squares;
 pub mod logistic;
+pub mod precision;
 
 pub use least_squares::LeastSquares;
 pub use logistic::Logistic;
