@@ -1,12 +1,18 @@
 //! ellone: Newton coordinate descent for ℓ1-penalised smooth convex problems.
 #![deny(missing_docs)]
 
+pub mod crf;
+pub mod cv;
 pub mod design;
 pub mod error;
 pub mod io;
 pub mod linalg;
 pub mod loss;
+pub mod path;
 pub mod penalty;
+pub mod race;
+#[cfg(feature = "cli")]
+pub mod race_plot;
 pub mod solver;
 
 pub use design::Design;
