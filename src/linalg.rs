@@ -660,6 +660,11 @@ mod tests {
         big.slice_mut(s![..;2, ..;2]).assign(&a);
         let cs = cholesky(big.slice(s![..;2, ..;2])).expect("SPD");
         assert!(max_abs_diff(&cs.lower(), &l_true) < 1e-15);
+        // Negative strides: the reversed matrix P A P is symmetric too; check L Lᵀ = P A P.
+        let rev = a.slice(s![..;-1, ..;-1]);
+        let l = cholesky(rev).expect("SPD").lower();
+        let llt = naive_matmul(&l, &l.t().to_owned());
+        assert!(max_abs_diff(&llt, &rev.to_owned()) < 1e-14);
     }
 
     #[test]
