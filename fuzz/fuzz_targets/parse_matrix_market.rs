@@ -1,0 +1,10 @@
+//! Feeds arbitrary UTF-8 text to `ellone::io::parse_matrix_market`: it must return, never panic.
+#![no_main]
+
+use libfuzzer_sys::fuzz_target;
+
+fuzz_target!(|data: &[u8]| {
+    if let Ok(text) = std::str::from_utf8(data) {
+        let _ = ellone::io::parse_matrix_market(text, "<fuzz>");
+    }
+});
