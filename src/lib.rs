@@ -13,6 +13,9 @@ pub mod penalty;
 pub mod race;
 #[cfg(feature = "cli")]
 pub mod race_plot;
+pub mod race;
+#[cfg(feature = "cli")]
+pub mod race_plot;
 pub mod solver;
 
 pub use design::Design;
