@@ -9,10 +9,8 @@ pub mod io;
 pub mod linalg;
 pub mod loss;
 pub mod path;
+pub mod precision;
 pub mod penalty;
-pub mod race;
-#[cfg(feature = "cli")]
-pub mod race_plot;
 pub mod race;
 #[cfg(feature = "cli")]
 pub mod race_plot;
