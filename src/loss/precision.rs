@@ -515,6 +515,14 @@ impl Loss for LogDet {
         }
     }
 
+    fn structure(&self) -> Option<super::LossStructure<'_>> {
+        let pairs = self.pairs.iter().map(|&(i, j)| (i as usize, j as usize));
+        Some(super::LossStructure::Precision {
+            s: self.s.view(),
+            pairs: pairs.collect::<Vec<_>>().into(),
+        })
+    }
+
     fn penalty_factor(&self, k: usize) -> f64 {
         match self.pairs.get(k) {
             Some(&(i, j)) if i != j => 2.0,
