@@ -628,3 +628,39 @@ fn inconsistent_inputs_fail() {
         assert!(stderr(&out).contains(&needle), "{full:?}: {}", stderr(&out));
     }
 }
+
+/// Every `--solver` reaches the macrodata lasso reference objective at λ = 0.1673 (general-
+/// purpose conic solver, polished; tests/data/README.md) and reports its own name.
+#[test]
+fn every_solver_reaches_the_reference() {
+    let (_, x, y) = macrodata_files("macro-x.csv");
+    let (objective, _, reference) = macrodata_reference();
+    for (flag, name) in [
+        ("newton-cd", "newton-cd"),
+        ("fista", "fista"),
+        ("admm", "admm"),
+        ("owl-qn", "owl-qn"),
+    ] {
+        let v = solve_json(&[
+            "solve",
+            "--loss",
+            "least-squares",
+            "--x",
+            x.arg(),
+            "--y",
+            y.arg(),
+            "--lambda",
+            "0.1673",
+            "--intercept",
+            "--solver",
+            flag,
+        ]);
+        assert_eq!(v["solver"], name);
+        assert_eq!(v["status"], "converged", "{flag}");
+        let rel = (number(&v, "objective") - objective).abs() / objective.abs();
+        assert!(rel <= 1e-8, "{flag}: relative objective error {rel:e}");
+        for (j, (c, r)) in coefficients(&v).iter().zip(&reference).enumerate() {
+            assert!((c - r).abs() <= 1e-5, "{flag}: coefficient {j}: {c} vs {r}");
+        }
+    }
+}
