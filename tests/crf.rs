@@ -87,8 +87,8 @@ fn local_model_matches_exact_products() {
         // Gradient and value.
         let mut g = vec![0.0; m];
         loss.gradient(&pt, &mut g);
-        for k in 0..m {
-            assert!((model.gradient()[k] - g[k]).abs() < 1e-10 * (1.0 + g[k].abs()));
+        for (a, b) in model.gradient().iter().zip(&g) {
+            assert!((a - b).abs() < 1e-10 * (1.0 + b.abs()));
         }
         assert!((model.value() - loss.value(&pt).unwrap()).abs() < 1e-10);
         // Curvatures: e_kᵀ H e_k.
@@ -115,12 +115,12 @@ fn local_model_matches_exact_products() {
             d[k] += 0.05 * z;
         }
         loss.hess_vec(&pt, &d, &mut hv);
-        for k in 0..m {
+        for (k, hk) in hv.iter().enumerate() {
             let h = model.hd(k);
             assert!(
-                (h - hv[k]).abs() < 1e-9 * (1.0 + hv[k].abs()),
+                (h - hk).abs() < 1e-9 * (1.0 + hk.abs()),
                 "{mode:?} k={k} {h} {}",
-                hv[k]
+                hk
             );
         }
         for alpha in [1.0, 0.5, 0.125] {
