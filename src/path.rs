@@ -73,7 +73,7 @@ pub struct PathOptions {
     /// The Newton-CD solver used at every λ.
     pub solver: NewtonCd,
     /// Compute the duality gap at every point (about one pass over the data each).
-    /// Default true.
+    /// Default false.
     pub duality_gaps: bool,
 }
 
@@ -85,7 +85,7 @@ impl Default for PathOptions {
             lambdas: None,
             screening: true,
             solver: NewtonCd::default(),
-            duality_gaps: true,
+            duality_gaps: false,
         }
     }
 }

@@ -260,6 +260,9 @@ pub(crate) struct Run<'o> {
     max_iter: usize,
     time_limit: Option<Duration>,
     gap_tol: Option<f64>,
+    /// Leave the duality gap out of the final solution (restricted solves inside a path,
+    /// whose caller certifies the full problem itself).
+    pub(crate) skip_gap: bool,
 }
 
 impl<'o> Run<'o> {
@@ -321,6 +324,7 @@ impl<'o> Run<'o> {
             max_iter: opts.max_iter,
             time_limit: opts.time_limit,
             gap_tol: opts.gap_tol,
+            skip_gap: false,
         };
         Ok((run, pen, x))
     }
@@ -376,6 +380,7 @@ impl<'o> Run<'o> {
         inner: usize,
     ) -> Result<Solution> {
         let (objective, kkt, gap) = match known {
+            Some((f, r)) if self.skip_gap => (f, r, None),
             Some((f, r)) => (f, r, loss.duality_gap(&x, pen)),
             None => certify(loss, pen, &x).ok_or_else(|| {
                 Error::Numerical("the final iterate left the domain of the loss".into())

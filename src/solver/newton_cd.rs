@@ -154,6 +154,7 @@ impl NewtonCd {
             observer,
             working.map(|w| w.gradient_scale),
         )?;
+        run.skip_gap = working.is_some();
         let m = loss.dim();
         let all: Vec<usize>;
         let candidates: &[usize] = match working {
@@ -293,12 +294,21 @@ impl NewtonCd {
             let Some(alpha) = accepted else {
                 break (Status::LineSearchFailed, (objective, kkt));
             };
+            let mut moved = false;
             for &k in &free {
-                x[k] = if alpha == 1.0 {
+                let v = if alpha == 1.0 {
                     target[k]
                 } else {
                     x[k] + alpha * (target[k] - x[k])
                 };
+                moved |= v != x[k];
+                x[k] = v;
+            }
+            if !moved {
+                // The accepted step is below the resolution of x (the decrease test passed
+                // only because F(x + αd) rounds to F(x)): the next iteration would rebuild
+                // the same model and direction, so stop here instead of looping.
+                break (Status::LineSearchFailed, (objective, kkt));
             }
             iteration += 1;
         };
