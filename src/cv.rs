@@ -140,7 +140,7 @@ pub struct CvResult {
     pub lambdas: Vec<f64>,
     /// Names of the scores (the first is the one λ is chosen by).
     pub score_names: Vec<String>,
-    /// scores[s][f][l]: score s, fold f, λ index l.
+    /// `scores[s][f][l]`: score s, fold f, λ index l.
     pub scores: Vec<Vec<Vec<f64>>>,
     /// Mean over folds of the primary score, per λ.
     pub mean: Vec<f64>,

@@ -10,7 +10,7 @@
 //!
 //! **Duality gap.** The Fenchel dual of the lasso is max_θ θᵀy − (n/2)‖θ‖² subject to
 //! |x_jᵀθ| ≤ λ_j (and 1ᵀθ = 0 with an intercept); θ* = r*/n. From any iterate, θ = s·r̃/n
-//! with r̃ the (centred, when there is an intercept) residual and s ∈ [0,1] the largest
+//! with r̃ the (centred, when there is an intercept) residual and s ∈ \[0, 1\] the largest
 //! scaling that makes θ feasible. The elastic-net term (λ₂/2)‖b‖² is handled by the usual
 //! augmentation X̃ = [X; √(nλ₂) I], ỹ = [y; 0], which adds −λ₂b_j to each correlation and
 //! s²λ₂‖b‖²/2 to the dual's quadratic term.

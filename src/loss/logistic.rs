@@ -13,9 +13,9 @@
 //! beyond) neither overflows nor loses the small terms.
 //!
 //! **Duality gap.** The dual is max_u −(1/n) Σ_i h(u_i), h(u) = u log u + (1−u) log(1−u),
-//! over u ∈ [0,1]^n with |x_jᵀ(y − u)|/n ≤ λ_j (and Σ_i (y_i − u_i) = 0 with an intercept);
+//! over u ∈ \[0, 1\]ⁿ with |x_jᵀ(y − u)|/n ≤ λ_j (and Σ_i (y_i − u_i) = 0 with an intercept);
 //! u* = π*. From an iterate, u = y − s·ρ̃ with ρ = y − π (centred when there is an
-//! intercept) and s ∈ [0,1] the largest scaling that keeps u feasible.
+//! intercept) and s ∈ \[0, 1\] the largest scaling that keeps u feasible.
 
 use super::glm::LinearData;
 use super::{LocalModel, Loss};
