@@ -664,3 +664,261 @@ fn every_solver_reaches_the_reference() {
         }
     }
 }
+
+/// A matrix from a JSON array of rows.
+fn matrix(v: &Value, key: &str) -> Array2<f64> {
+    let rows = v[key]
+        .as_array()
+        .unwrap_or_else(|| panic!("{key} is not an array"));
+    let data: Vec<Vec<f64>> = rows
+        .iter()
+        .map(|r| {
+            r.as_array()
+                .expect("a row")
+                .iter()
+                .map(|c| c.as_f64().expect("a number"))
+                .collect()
+        })
+        .collect();
+    let (n, m) = (data.len(), data.first().map_or(0, Vec::len));
+    Array2::from_shape_fn((n, m), |(i, j)| data[i][j])
+}
+
+/// The optimal objective of the macrodata precision fixture at `lambda`
+/// (tests/data/macrodata-precision-objectives.csv).
+fn precision_reference_objective(lambda: f64) -> f64 {
+    let (header, rows) = read_table("macrodata-precision-objectives.csv");
+    let col = header
+        .iter()
+        .position(|h| h == "optimal_objective")
+        .expect("objective column");
+    let row = rows
+        .iter()
+        .find(|r| r[0].parse::<f64>().expect("λ") == lambda)
+        .expect("λ row");
+    row[col].parse().expect("number")
+}
+
+/// The macrodata columns standardised as in tests/data/README.md (mean 0, sd dividing by
+/// n), so that ZᵀZ/n is the correlation matrix of macrodata-corr.csv.
+fn standardised_macrodata() -> Array2<f64> {
+    let (_, raw) = read_numeric_table("macrodata.csv");
+    let n = raw.nrows() as f64;
+    let mut z = raw.clone();
+    for mut col in z.columns_mut() {
+        let mean = col.sum() / n;
+        let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt();
+        col.mapv_inplace(|v| (v - mean) / sd);
+    }
+    z
+}
+
+fn sorted_keys(v: &Value) -> Vec<String> {
+    let mut keys: Vec<String> = v.as_object().expect("an object").keys().cloned().collect();
+    keys.sort_unstable();
+    keys
+}
+
+/// Sparse precision matrices of the macrodata correlation matrix (reference: general-purpose
+/// conic solver, polished; tests/data/README.md): at every fixture λ the objective is within
+/// 1e-8 relative, the zero pattern is exactly the reference's, Θ is symmetric, and the JSON
+/// carries `precision` and an empty `coefficients`.
+#[test]
+fn precision_macrodata_fixtures() {
+    let cov = common::data_path("macrodata-corr.csv");
+    let cov = cov.to_str().expect("UTF-8 path");
+    for (lambda, file) in [
+        ("0.05", "macrodata-precision-lambda0.05.csv"),
+        ("0.1", "macrodata-precision-lambda0.1.csv"),
+        ("0.2", "macrodata-precision-lambda0.2.csv"),
+        ("0.4", "macrodata-precision-lambda0.4.csv"),
+    ] {
+        let v = solve_json(&[
+            "solve",
+            "--loss",
+            "precision",
+            "--cov",
+            cov,
+            "--lambda",
+            lambda,
+        ]);
+        let objective = precision_reference_objective(lambda.parse().expect("λ"));
+        let rel = (number(&v, "objective") - objective).abs() / objective.abs();
+        assert!(rel <= 1e-8, "λ={lambda}: relative objective error {rel:e}");
+        assert_eq!(v["status"], "converged");
+        let theta = matrix(&v, "precision");
+        let reference = common::read_matrix(file);
+        assert_eq!(theta.dim(), (12, 12));
+        for ((i, j), t) in theta.indexed_iter() {
+            assert_eq!(
+                *t == 0.0,
+                reference[[i, j]] == 0.0,
+                "λ={lambda}: zero at ({i},{j})"
+            );
+            assert_eq!(*t, theta[[j, i]], "symmetry at ({i},{j})");
+        }
+        assert!(coefficients(&v).is_empty());
+        assert_eq!(number(&v, "intercept"), 0.0);
+        let mut expected: Vec<String> = [
+            "loss",
+            "solver",
+            "status",
+            "objective",
+            "kkt_residual",
+            "duality_gap",
+            "iterations",
+            "seconds",
+            "intercept",
+            "coefficients",
+            "precision",
+        ]
+        .map(String::from)
+        .to_vec();
+        expected.sort_unstable();
+        assert_eq!(sorted_keys(&v), expected);
+        let gap = number(&v, "duality_gap");
+        assert!(gap.abs() <= 1e-6, "λ={lambda}: duality gap {gap}");
+    }
+}
+
+/// `--x` for precision forms S = XᵀX/n from the data as given (centring only with
+/// `--center`): the standardised macrodata give the fixture's correlation matrix, hence the
+/// fixture's optimum; with `--center` too (the columns already have mean 0). Baseline
+/// solvers reach the same optimum.
+#[test]
+fn precision_from_data_and_baselines() {
+    let z = TempFile::with_text("macro-z.csv", &csv_text(&standardised_macrodata()));
+    let objective = precision_reference_objective(0.2);
+    let runs: [&[&str]; 4] = [
+        &[],
+        &["--center"],
+        &["--solver", "admm", "--max-iter", "5000"],
+        &["--solver", "owl-qn", "--max-iter", "20000"],
+    ];
+    for extra in runs {
+        let mut args = vec![
+            "solve",
+            "--loss",
+            "precision",
+            "--x",
+            z.arg(),
+            "--lambda",
+            "0.2",
+        ];
+        args.extend_from_slice(extra);
+        let v = solve_json(&args);
+        assert_eq!(v["status"], "converged", "{extra:?}");
+        let rel = (number(&v, "objective") - objective).abs() / objective.abs();
+        assert!(rel <= 1e-8, "{extra:?}: relative objective error {rel:e}");
+    }
+    // Without centring, S is the raw second-moment matrix: a different problem.
+    let (_, raw) = read_numeric_table("macrodata.csv");
+    let rawf = TempFile::with_text("macro-raw.csv", &csv_text(&raw));
+    let plain = solve_json(&[
+        "solve",
+        "--loss",
+        "precision",
+        "--x",
+        rawf.arg(),
+        "--lambda",
+        "0.2",
+    ]);
+    let centred = solve_json(&[
+        "solve",
+        "--loss",
+        "precision",
+        "--x",
+        rawf.arg(),
+        "--lambda",
+        "0.2",
+        "--center",
+    ]);
+    assert_ne!(number(&plain, "objective"), number(&centred, "objective"));
+}
+
+/// Gaussian CRF with one output and no penalty is linear regression (a textbook identity):
+/// y | x ~ N(−Λ⁻¹Θᵀx, Λ⁻¹), so the slopes are −Θ/Λ and the residual variance is 1/Λ. On the
+/// centred Longley data this must reproduce the NIST StRD certified slopes b1…b6 and the
+/// residual sum of squares n/Λ (certified values quoted from memory; tests/data/README.md).
+#[test]
+fn crf_one_output_is_longley_regression() {
+    let (x, y) = longley_files();
+    let v = solve_json(&[
+        "solve",
+        "--loss",
+        "gaussian-crf",
+        "--x",
+        x.arg(),
+        "--y",
+        y.arg(),
+        "--lambda",
+        "0",
+        "--lambda-theta",
+        "0",
+        "--center",
+        "--tol",
+        "1e-12",
+    ]);
+    let lambda = matrix(&v, "precision");
+    let theta = matrix(&v, "interaction");
+    assert_eq!(lambda.dim(), (1, 1));
+    assert_eq!(theta.dim(), (6, 1), "interaction is p rows × q columns");
+    assert!(coefficients(&v).is_empty());
+    let (_, cert) = read_table("longley-certified.csv");
+    let certified = |name: &str| -> f64 {
+        cert.iter().find(|r| r[0] == name).expect("certified row")[1]
+            .parse()
+            .expect("number")
+    };
+    for j in 0..6 {
+        let slope = -theta[[j, 0]] / lambda[[0, 0]];
+        let digits = significant_digits(slope, certified(&format!("b{}", j + 1)));
+        assert!(digits >= 7.0, "b{}: {slope}, {digits:.1} digits", j + 1);
+    }
+    let rss = 16.0 / lambda[[0, 0]];
+    assert!(
+        significant_digits(rss, certified("residual_ss")) >= 7.0,
+        "RSS {rss}"
+    );
+    let mut keys = sorted_keys(&v);
+    keys.retain(|k| k == "precision" || k == "interaction");
+    assert_eq!(keys, ["interaction", "precision"]);
+}
+
+/// When λ_Θ exceeds max |2(S_xy)_ij| the optimal Θ is 0 (its KKT condition at Θ = 0), and
+/// the CRF reduces to the precision problem on S_yy. With Y the standardised macrodata,
+/// S_yy is the fixture's correlation matrix, so Λ must match the λ = 0.2 precision fixture
+/// (conic solver reference, tests/data/README.md).
+#[test]
+fn crf_with_zero_interaction_is_the_precision_fixture() {
+    let z = standardised_macrodata();
+    let yf = TempFile::with_text("crf-y.csv", &csv_text(&z));
+    // Inputs: two of the standardised columns, so |S_xy| ≤ 1 and λ_Θ = 2.5 zeroes Θ.
+    let xf = TempFile::with_text("crf-x.csv", &csv_text(&z.slice(s![.., 0..2]).to_owned()));
+    let v = solve_json(&[
+        "solve",
+        "--loss",
+        "gaussian-crf",
+        "--x",
+        xf.arg(),
+        "--y",
+        yf.arg(),
+        "--lambda",
+        "0.2",
+        "--lambda-theta",
+        "2.5",
+    ]);
+    assert_eq!(v["status"], "converged");
+    let theta = matrix(&v, "interaction");
+    assert_eq!(theta.dim(), (2, 12));
+    assert!(theta.iter().all(|t| *t == 0.0), "Θ is exactly zero");
+    let objective = precision_reference_objective(0.2);
+    let rel = (number(&v, "objective") - objective).abs() / objective.abs();
+    assert!(rel <= 1e-8, "relative objective error {rel:e}");
+    let lambda = matrix(&v, "precision");
+    let reference = common::read_matrix("macrodata-precision-lambda0.2.csv");
+    for ((i, j), l) in lambda.indexed_iter() {
+        assert_eq!(*l == 0.0, reference[[i, j]] == 0.0, "zero at ({i},{j})");
+        assert!((l - reference[[i, j]]).abs() <= 1e-5, "({i},{j}): {l}");
+    }
+}

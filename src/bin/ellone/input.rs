@@ -35,7 +35,6 @@ pub fn design(option: &str, path: &Path) -> CliResult<Design> {
 
 /// Reads a dense matrix (CSV; Matrix Market is densified) for inputs that are not designs,
 /// such as a covariance matrix.
-#[allow(dead_code)] // used by the precision and CRF problems once their solvers land
 pub fn dense_matrix(path: &Path) -> CliResult<ndarray::Array2<f64>> {
     Ok(match io::read_matrix(path)? {
         MatrixInput::Dense(a) => a,
