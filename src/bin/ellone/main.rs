@@ -22,6 +22,7 @@
 mod error;
 mod input;
 mod output;
+mod race;
 mod solve;
 mod solvers;
 
@@ -44,12 +45,15 @@ struct Cli {
 enum Command {
     /// Solve one penalised problem at one λ and print the solution as JSON.
     Solve(solve::Args),
+    /// Race several solvers on one problem: traces as CSV, convergence plot as SVG.
+    Race(race::Args),
 }
 
 /// Runs the chosen subcommand.
 fn dispatch(command: &Command) -> CliResult<()> {
     match command {
         Command::Solve(args) => solve::run(args),
+        Command::Race(args) => race::run(args),
     }
 }
 
