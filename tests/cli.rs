@@ -922,3 +922,43 @@ fn crf_with_zero_interaction_is_the_precision_fixture() {
         assert!((l - reference[[i, j]]).abs() <= 1e-5, "({i},{j}): {l}");
     }
 }
+
+/// Precision weights: λ = 0.4 with every w_ij = ½ is the λ = 0.2 problem, so it reaches the
+/// λ = 0.2 fixture's optimum (conic solver reference, tests/data/README.md); a weight matrix
+/// of the wrong shape is rejected with a message naming the weights file.
+#[test]
+fn precision_weights_rescale_the_penalty() {
+    let cov = common::data_path("macrodata-corr.csv");
+    let cov = cov.to_str().expect("UTF-8 path");
+    let half = Array2::from_elem((12, 12), 0.5);
+    let w = TempFile::with_text("precision-weights.csv", &csv_text(&half));
+    let v = solve_json(&[
+        "solve",
+        "--loss",
+        "precision",
+        "--cov",
+        cov,
+        "--lambda",
+        "0.4",
+        "--weights",
+        w.arg(),
+    ]);
+    let objective = precision_reference_objective(0.2);
+    let rel = (number(&v, "objective") - objective).abs() / objective.abs();
+    assert!(rel <= 1e-8, "relative objective error {rel:e}");
+
+    let wrong = TempFile::with_text("precision-weights-3.csv", "1,1,1\n1,1,1\n1,1,1\n");
+    let out = ellone(&[
+        "solve",
+        "--loss",
+        "precision",
+        "--cov",
+        cov,
+        "--lambda",
+        "0.4",
+        "--weights",
+        wrong.arg(),
+    ]);
+    assert!(!out.status.success());
+    assert!(stderr(&out).contains(wrong.arg()), "{}", stderr(&out));
+}

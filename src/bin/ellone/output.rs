@@ -27,6 +27,19 @@ pub fn finite_vec(what: &str, v: &[f64]) -> CliResult<Vec<f64>> {
         .collect()
 }
 
+/// Fails early (before a long solve) if `path` cannot be written: its directory must exist
+/// and the path must not be a directory.
+pub fn check_writable(path: &Path) -> CliResult<()> {
+    let dir = path.parent().filter(|d| !d.as_os_str().is_empty());
+    if dir.is_some_and(|d| !d.is_dir()) || path.is_dir() {
+        return Err(CliError::new(format!(
+            "cannot write --out {}: no such directory, or it is a directory",
+            path.display()
+        )));
+    }
+    Ok(())
+}
+
 /// Serialises `value` as pretty JSON followed by a newline, to `out` or to stdout.
 pub fn write_json<T: Serialize>(value: &T, out: Option<&Path>) -> CliResult<()> {
     let mut text = serde_json::to_string_pretty(value)

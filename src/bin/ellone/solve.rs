@@ -142,6 +142,9 @@ pub struct Report {
 pub fn run(args: &Args) -> CliResult<()> {
     check_option_combinations(args)?;
     let options = solver_options(args)?;
+    if let Some(out) = &args.out {
+        output::check_writable(out)?;
+    }
     let report = match args.loss {
         LossKind::LeastSquares | LossKind::Logistic => solve_linear(args, options)?,
         LossKind::Precision => solve_precision(args, options)?,
@@ -334,6 +337,7 @@ fn solve_precision(args: &Args, options: SolverOptions) -> CliResult<Report> {
         (None, Some(x)) => ("x", x.as_path()),
         (None, None) => return Err(CliError::new("--loss precision needs --cov or --x")),
     };
+    let pen = Penalty::l1(args.lambda).map_err(|e| CliError::from(e).context("--lambda"))?;
     let matrix = input::dense_matrix(path)?;
     let context = |e: ellone::Error| CliError::from(e).context(option_file(option, path));
     let s = if args.cov.is_some() {
@@ -343,7 +347,20 @@ fn solve_precision(args: &Args, options: SolverOptions) -> CliResult<Report> {
     };
     if args.solver == SolverKind::NewtonCd {
         let weights = match &args.weights {
-            Some(w) => Some(input::dense_matrix(w)?),
+            Some(path) => {
+                let w = input::dense_matrix(path)?;
+                if w.dim() != s.dim() {
+                    return Err(CliError::new(format!(
+                        "a {}×{} matrix, but the covariance is {}×{}",
+                        w.nrows(),
+                        w.ncols(),
+                        s.nrows(),
+                        s.ncols()
+                    ))
+                    .context(option_file("weights", path)));
+                }
+                Some(w)
+            }
             None => None,
         };
         let precision_options = PrecisionOptions {
@@ -359,11 +376,16 @@ fn solve_precision(args: &Args, options: SolverOptions) -> CliResult<Report> {
             args.lambda,
             &precision_options,
         )
-        .map_err(|e| match e {
-            ellone::Error::InvalidLambda { ref name, .. } if name == "lambda" => {
-                CliError::from(e).context("--lambda")
+        .map_err(|e| {
+            let about_weights = match &e {
+                ellone::Error::InvalidLambda { name, .. } => name.starts_with("weight"),
+                ellone::Error::NotSymmetric { what, .. } => what.contains("weight"),
+                _ => false,
+            };
+            match (&args.weights, about_weights) {
+                (Some(path), true) => CliError::from(e).context(option_file("weights", path)),
+                _ => context(e),
             }
-            other => context(other),
         })?;
         let solution = Solution {
             solver: "newton-cd".into(),
@@ -382,7 +404,6 @@ fn solve_precision(args: &Args, options: SolverOptions) -> CliResult<Report> {
         return Ok(report);
     }
     let loss = LogDet::new(s.view(), args.penalize_diagonal).map_err(context)?;
-    let pen = Penalty::l1(args.lambda).map_err(|e| CliError::from(e).context("--lambda"))?;
     let solution = args.solver.build(options).solve(&loss, &pen)?;
     let theta = loss.to_matrix(&solution.x)?;
     let mut report = common_report(args.loss, &solution, 0.0, Vec::new())?;
