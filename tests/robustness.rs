@@ -161,8 +161,8 @@ fn wildly_scaled_features() {
     let scales = [1e-8, 1.0, 1e8];
     let base = Array2::from_shape_fn((n, 3), |(i, j)| ((i * (j + 2)) as f64 * 0.7).sin());
     let mut scaled = base.clone();
-    for j in 0..3 {
-        scaled.column_mut(j).mapv_inplace(|v| v * scales[j]);
+    for (j, &s) in scales.iter().enumerate() {
+        scaled.column_mut(j).mapv_inplace(|v| v * s);
     }
     let y: Vec<f64> = (0..n)
         .map(|i| base[[i, 0]] - 2.0 * base[[i, 1]] + 0.5 * base[[i, 2]])
