@@ -14,6 +14,7 @@ pub mod penalty;
 pub mod race;
 #[cfg(feature = "cli")]
 pub mod race_plot;
+pub mod scenario;
 pub mod solver;
 
 pub use design::Design;
