@@ -962,3 +962,40 @@ fn precision_weights_rescale_the_penalty() {
     assert!(!out.status.success());
     assert!(stderr(&out).contains(wrong.arg()), "{}", stderr(&out));
 }
+
+/// A solve stopped by `--max-iter` is not reported as converged: exit code 0, status
+/// `iteration_limit`, a warning on stderr, and the best iterate with its (large) KKT
+/// residual. Longley without an intercept at λ = 1 needs far more than one iteration: its
+/// starting KKT residual is max_j |x_jᵀy|/n − λ (tests/data/longley.csv).
+#[test]
+fn iteration_limit_is_reported_honestly() {
+    let (x, y) = longley_files();
+    let out = ellone(&[
+        "solve",
+        "--loss",
+        "least-squares",
+        "--x",
+        x.arg(),
+        "--y",
+        y.arg(),
+        "--lambda",
+        "1",
+        "--max-iter",
+        "1",
+    ]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    assert!(stderr(&out).contains("iteration_limit"), "{}", stderr(&out));
+    let v: Value = serde_json::from_slice(&out.stdout).expect("JSON");
+    assert_eq!(v["status"], "iteration_limit");
+    assert_eq!(v["iterations"], 1);
+    let (_, data) = read_numeric_table("longley.csv");
+    let n = data.nrows() as f64;
+    let y0 = data.column(0);
+    let grad0 = (1..7)
+        .map(|j| data.column(j).dot(&y0).abs() / n)
+        .fold(0.0f64, f64::max);
+    assert!(
+        number(&v, "kkt_residual") > 1e-7 * grad0,
+        "not converged, so above the rule"
+    );
+}
