@@ -176,14 +176,9 @@ fn wildly_scaled_features() {
     let sa = tight.solve(&a, &Penalty::l1(0.0).unwrap()).unwrap();
     let sb = tight.solve(&b, &Penalty::l1(0.0).unwrap()).unwrap();
     check_solution(&sb);
-    for j in 0..3 {
-        let rel = (sb.x[j] * scales[j] - sa.x[j]).abs() / sa.x[j].abs();
-        assert!(
-            rel < 1e-6,
-            "column {j}: {} vs {}",
-            sb.x[j] * scales[j],
-            sa.x[j]
-        );
+    for (j, &s) in scales.iter().enumerate() {
+        let rel = (sb.x[j] * s - sa.x[j]).abs() / sa.x[j].abs();
+        assert!(rel < 1e-6, "column {j}: {} vs {}", sb.x[j] * s, sa.x[j]);
     }
 }
 
