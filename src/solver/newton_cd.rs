@@ -23,7 +23,10 @@
 //!
 //! The ℓ2 (elastic-net) term is treated as part of the smooth function. Stopping: KKT
 //! residual (and optionally the duality gap), iteration and time limits, the observer.
-//! Since Armijo steps only decrease F, the last iterate is the best one.
+//! Since Armijo steps only decrease F, the last iterate is the best one. (Near the limit of
+//! floating point, where a predicted decrease is below the rounding noise of evaluating F,
+//! full steps are taken while the KKT residual keeps halving; F then moves by rounding
+//! noise only, and the run ends with `LineSearchFailed` once no step changes x.)
 //!
 //! References: "A coordinate gradient descent method for nonsmooth separable
 //! minimization", Mathematical Programming, 2009 (the descent-direction framework and the
@@ -34,6 +37,11 @@ use super::{Run, Solution, Solver, SolverOptions, Status, TraceRecord};
 use crate::error::Result;
 use crate::loss::{LocalModel, Loss};
 use crate::penalty::{soft_threshold, Penalty, ResolvedPenalty};
+
+/// Relative size of a predicted decrease below which a fresh evaluation of F cannot reliably
+/// confirm it: F is a sum of many terms and carries rounding errors from ε·|F| up to about
+/// n·ε·|F| (common practice: do not compare a decrease with evaluation noise).
+const ROUNDING_DECREASE: f64 = 1e-13;
 
 /// Tuning of the inner loop of Newton coordinate descent.
 #[derive(Debug, Clone, PartialEq)]
@@ -169,6 +177,8 @@ impl NewtonCd {
         let mut g = vec![0.0; m];
         let mut inner_total = 0usize;
         let mut iteration = 0usize;
+        // KKT residual at the last step accepted in the rounding regime (see the line search).
+        let mut rounding_kkt = f64::INFINITY;
         let (status, known) = loop {
             let mut model = match working {
                 Some(w) => loss.local_model_subset(&x, w.coordinates)?,
@@ -281,9 +291,23 @@ impl NewtonCd {
                         })
                         .sum();
                     let f_new = fa + pen_rest + pen_new;
-                    if f_new.is_finite()
-                        && f_new <= f_old + pen_rest + pen_free_old + self.cd.armijo * alpha * delta
+                    let f_ref = f_old + pen_rest + pen_free_old;
+                    if f_new.is_finite() && f_new <= f_ref + self.cd.armijo * alpha * delta {
+                        accepted = Some(alpha);
+                        break;
+                    }
+                    // Rounding regime: the predicted decrease is below what a fresh
+                    // evaluation of F can resolve, so the comparison above is noise. Take
+                    // the full (Newton / coordinate-descent) step, whose model is exact to
+                    // third order, as long as the KKT residual keeps falling geometrically
+                    // (which rules out looping on gradient noise). F may then move by
+                    // rounding noise only.
+                    if alpha == 1.0
+                        && f_new.is_finite()
+                        && -delta <= ROUNDING_DECREASE * f_ref.abs().max(1.0)
+                        && kkt <= 0.5 * rounding_kkt
                     {
+                        rounding_kkt = kkt;
                         accepted = Some(alpha);
                         break;
                     }
