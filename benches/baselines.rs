@@ -1,0 +1,271 @@
+//! Time to 1e-6 relative suboptimality: each baseline (FISTA, ADMM, OWL-QN) against Newton
+//! coordinate descent, per loss, on problems of the size the loss benchmarks use.
+//!
+//! Every problem is raced with [`ellone::race::race`]: a reference solve by Newton-CD at
+//! KKT tolerance 1e-12 fixes F*, then each solver runs from the loss's default start until
+//! (F − F*)/|F*| ≤ 1e-6 or the budget runs out. Reported per loss: seconds to the target
+//! for each solver and the ratio baseline/Newton-CD (">" when the baseline did not reach
+//! the target within the budget: the ratio is then a lower bound).
+//!
+//! Problems (synthetic, seeded; the parameter counts are per block):
+//! * logistic: n = 2000, p = 1000 dense N(0,1) features, 20 true non-zero coefficients,
+//!   labels drawn from the logistic model, intercept, λ = 0.05·λ_max;
+//! * least squares: the same design, Gaussian noise, λ = 0.05·λ_max;
+//! * precision: p = 1000 (500 500 coordinates), the sparse-graph data of benches/precision.rs
+//!   (each variable linked to 2 others, n = p/2 + 200 samples), λ at the 99% quantile of
+//!   the off-diagonal |S_ij|; all solvers on the same log-det loss (no block screening);
+//! * Gaussian CRF: p = 40 inputs, q = 45 outputs (Λ: 1035 coordinates, Θ: 1800), n = 400,
+//!   sparse true Λ (chain) and Θ (each output driven by 2 inputs), λ_Λ = λ_Θ = 0.05.
+//!
+//! Environment: `ELLONE_BENCH_LOSSES` (comma-separated subset of
+//! "logistic,least-squares,precision,crf"; default all), `ELLONE_BENCH_BUDGET` (seconds per
+//! solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
+//! target/bench-baselines).
+
+use ellone::crf::{CrfData, CrfLoss, InputMode};
+use ellone::linalg;
+use ellone::loss::precision::LogDet;
+use ellone::precision::sample_covariance;
+use ellone::race::{race, RaceOptions, RaceResult};
+use ellone::solver::{Admm, Fista, NewtonCd, Owlqn, Solver, SolverOptions};
+use ellone::{LeastSquares, Logistic, Loss, Penalty};
+use ndarray::Array2;
+use rand::{rngs::StdRng, RngExt, SeedableRng};
+use rand_distr::{Distribution, StandardNormal};
+use std::path::PathBuf;
+use std::time::Duration;
+
+fn normal_matrix(rng: &mut StdRng, n: usize, p: usize) -> Array2<f64> {
+    Array2::from_shape_fn((n, p), |_| StandardNormal.sample(rng))
+}
+
+/// λ_max of an ℓ1 problem with an intercept: ‖Xᵀ(r₀)‖∞/n with r₀ the centred response
+/// (least squares) or y − ȳ (logistic at the intercept-only optimum).
+fn lambda_max(x: &Array2<f64>, y: &[f64]) -> f64 {
+    let n = y.len() as f64;
+    let mean = y.iter().sum::<f64>() / n;
+    let r: Vec<f64> = y.iter().map(|v| v - mean).collect();
+    x.columns()
+        .into_iter()
+        .map(|c| (c.iter().zip(&r).map(|(a, b)| a * b).sum::<f64>() / n).abs())
+        .fold(0.0, f64::max)
+}
+
+fn linear_problem(logistic: bool) -> (Box<dyn Loss>, Penalty) {
+    let mut rng = StdRng::seed_from_u64(11);
+    let (n, p) = (2000, 1000);
+    let x = normal_matrix(&mut rng, n, p);
+    let mut beta = vec![0.0; p];
+    for b in beta.iter_mut().take(20) {
+        *b = if rng.random::<f64>() < 0.5 { -1.0 } else { 1.0 } * rng.random_range(0.5..1.5);
+    }
+    let eta: Vec<f64> = x
+        .rows()
+        .into_iter()
+        .map(|r| r.iter().zip(&beta).map(|(a, b)| a * b).sum())
+        .collect();
+    let y: Vec<f64> = eta
+        .iter()
+        .map(|&e| {
+            if logistic {
+                f64::from(rng.random::<f64>() < 1.0 / (1.0 + (-e).exp()))
+            } else {
+                e + Distribution::<f64>::sample(&StandardNormal, &mut rng)
+            }
+        })
+        .collect();
+    let lambda = 0.05 * lambda_max(&x, &y);
+    let pen = Penalty::l1(lambda).expect("valid λ");
+    if logistic {
+        (
+            Box::new(Logistic::from_dense(x.view(), &y, true).expect("valid data")),
+            pen,
+        )
+    } else {
+        (
+            Box::new(LeastSquares::from_dense(x.view(), &y, true).expect("valid data")),
+            pen,
+        )
+    }
+}
+
+/// The sparse-graph covariance of benches/precision.rs.
+fn precision_problem() -> (Box<dyn Loss>, Penalty) {
+    let p = 1000;
+    let mut rng = StdRng::seed_from_u64(1000);
+    let mut theta = Array2::<f64>::zeros((p, p));
+    for i in 0..p {
+        for _ in 0..2 {
+            let j = rng.random_range(0..p);
+            if j != i {
+                let v =
+                    rng.random_range(0.2..0.4) * if rng.random::<f64>() < 0.5 { -1.0 } else { 1.0 };
+                theta[[i, j]] = v;
+                theta[[j, i]] = v;
+            }
+        }
+    }
+    for i in 0..p {
+        let r: f64 = theta.row(i).iter().map(|v| v.abs()).sum();
+        theta[[i, i]] = r + 0.5;
+    }
+    let sigma = linalg::cholesky(theta.view())
+        .expect("diagonally dominant")
+        .inverse();
+    let l = linalg::cholesky(sigma.view()).expect("SPD").lower();
+    let n = p / 2 + 200;
+    let z = normal_matrix(&mut rng, n, p);
+    let x = linalg::matmul(z.view(), l.t());
+    let s = sample_covariance(x.view(), true).expect("finite data");
+    let mut off: Vec<f64> = Vec::with_capacity(p * (p - 1) / 2);
+    for i in 0..p {
+        for j in i + 1..p {
+            off.push(s[[i, j]].abs());
+        }
+    }
+    off.sort_by(f64::total_cmp);
+    let lambda = off[(off.len() as f64 * 0.99) as usize];
+    let loss = LogDet::new(s.view(), false).expect("valid covariance");
+    (Box::new(loss), Penalty::l1(lambda).expect("valid λ"))
+}
+
+fn crf_problem() -> (Box<dyn Loss>, Penalty) {
+    let mut rng = StdRng::seed_from_u64(45);
+    let (n, p, q) = (400, 40, 45);
+    let x = normal_matrix(&mut rng, n, p);
+    // Outputs: y = −Λ⁻¹Θᵀx + noise with covariance Λ⁻¹, Λ a chain, Θ two inputs per output.
+    let mut lam = Array2::<f64>::eye(q) * 1.5;
+    for i in 0..q - 1 {
+        lam[[i, i + 1]] = -0.5;
+        lam[[i + 1, i]] = -0.5;
+    }
+    let mut th = Array2::<f64>::zeros((p, q));
+    for k in 0..q {
+        for _ in 0..2 {
+            th[[rng.random_range(0..p), k]] = rng.random_range(-1.0..1.0);
+        }
+    }
+    let sigma = linalg::cholesky(lam.view()).expect("SPD chain").inverse();
+    let l = linalg::cholesky(sigma.view()).expect("SPD").lower();
+    let mean = linalg::matmul(linalg::matmul(x.view(), th.view()).view(), sigma.view()) * -1.0;
+    let noise = linalg::matmul(normal_matrix(&mut rng, n, q).view(), l.t());
+    let y = mean + noise;
+    let data = CrfData::new(x.view(), y.view(), true, false, InputMode::Auto).expect("data");
+    let loss = CrfLoss::new(data, 0.05, 0.05).expect("valid λ");
+    (Box::new(loss), Penalty::l1(1.0).expect("valid λ"))
+}
+
+fn solvers() -> Vec<Box<dyn Solver>> {
+    let o = SolverOptions {
+        tol: 1e-14,
+        max_iter: usize::MAX / 2,
+        ..Default::default()
+    };
+    vec![
+        Box::new(NewtonCd::new(o.clone())),
+        Box::new(Fista::new(o.clone())),
+        Box::new(Admm::new(o.clone())),
+        Box::new(Owlqn::new(o)),
+    ]
+}
+
+fn report(name: &str, result: &RaceResult, budget: f64) {
+    let times: Vec<Option<f64>> = (0..result.entries.len())
+        .map(|i| result.time_to(i, 1e-6))
+        .collect();
+    let newton = times[0];
+    println!("\n== {name}: F* = {:.12e}", result.best_objective);
+    println!(
+        "{:>10} {:>14} {:>12} {:>12} {:>18}",
+        "solver", "to 1e-6 (s)", "iterations", "passes", "ratio vs newton-cd"
+    );
+    let mut best_baseline: Option<(String, f64, bool)> = None;
+    for (i, e) in result.entries.iter().enumerate() {
+        let last = e.records.last();
+        let (t, reached) = match times[i] {
+            Some(t) => (t, true),
+            None => (e.seconds.max(budget), false),
+        };
+        let ratio = newton.map(|tn| t / tn);
+        let ratio_s = match (ratio, reached) {
+            (Some(r), true) => format!("{r:.1}"),
+            (Some(r), false) => format!("> {r:.1}"),
+            (None, _) => "n/a".into(),
+        };
+        println!(
+            "{:>10} {:>14} {:>12} {:>12} {:>18}",
+            e.solver,
+            if reached {
+                format!("{t:.4}")
+            } else {
+                format!("> {t:.1}")
+            },
+            last.map_or(0, |r| r.iteration),
+            last.map_or(0, |r| r.inner),
+            if i == 0 { "1".into() } else { ratio_s }
+        );
+        if i > 0 && best_baseline.as_ref().is_none_or(|b| t < b.1) {
+            best_baseline = Some((e.solver.clone(), t, reached));
+        }
+    }
+    if let (Some(tn), Some((b, t, reached))) = (newton, best_baseline) {
+        println!(
+            "RESULT {name}: best baseline {b}, ratio {}{:.1} (target ≥ 10)",
+            if reached { "" } else { "> " },
+            t / tn
+        );
+    }
+}
+
+fn main() {
+    // `cargo bench` passes `--bench`; nothing else to parse.
+    let losses = std::env::var("ELLONE_BENCH_LOSSES")
+        .unwrap_or_else(|_| "logistic,least-squares,precision,crf".into());
+    let budget: f64 = std::env::var("ELLONE_BENCH_BUDGET")
+        .ok()
+        .and_then(|s| s.parse().ok())
+        .unwrap_or(60.0);
+    let out = std::env::var("ELLONE_BENCH_OUT")
+        .map(PathBuf::from)
+        .unwrap_or_else(|_| {
+            PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("target/bench-baselines")
+        });
+    let _ = std::fs::create_dir_all(&out);
+    println!(
+        "backend {}, budget {budget} s per solver",
+        linalg::backend_name()
+    );
+    for name in losses.split(',').map(str::trim) {
+        let (loss, pen) = match name {
+            "logistic" => linear_problem(true),
+            "least-squares" => linear_problem(false),
+            "precision" => precision_problem(),
+            "crf" => crf_problem(),
+            other => {
+                eprintln!("unknown loss '{other}' in ELLONE_BENCH_LOSSES; skipped");
+                continue;
+            }
+        };
+        println!("\n{name}: {} coordinates", loss.dim());
+        let built = solvers();
+        let racers: Vec<&dyn Solver> = built.iter().map(|b| b.as_ref()).collect();
+        let options = RaceOptions {
+            budget: Duration::from_secs_f64(budget),
+            target: 1e-6,
+            reference: true,
+        };
+        match race(loss.as_ref(), &pen, &racers, &options) {
+            Ok(result) => {
+                report(name, &result, budget);
+                let _ = result.write_csv_file(&out.join(format!("{name}.csv")));
+                let _ = ellone::race_plot::plot_race(
+                    &result,
+                    &out.join(format!("{name}.svg")),
+                    900,
+                    560,
+                );
+            }
+            Err(e) => println!("{name}: race failed: {e}"),
+        }
+    }
+}
