@@ -7,12 +7,12 @@
 //! 1. create `NAME.rs` with `pub struct Args` (deriving `clap::Args`, one doc comment per
 //!    option: it becomes the `--help` text) and `pub fn run(args: &Args) -> CliResult<()>`;
 //! 2. add `mod NAME;` below;
-//! 3. add one variant `Name(NAME::Args)` to [`Command`] and one arm to [`dispatch`].
+//! 3. add one variant `Name(NAME::Args)` to `Command` and one arm to `dispatch`.
 //!
-//! Shared helpers: [`input`] reads matrices, vectors and weights with errors that name the
-//! file; [`output`] writes JSON to stdout or `--out FILE` and refuses non-finite numbers;
-//! [`solvers`] maps `--solver NAME` to a library solver (new solvers add one variant there);
-//! [`error`] is the error type every `run` returns. Subcommands: `solve` (one problem),
+//! Shared helpers: `input` reads matrices, vectors and weights with errors that name the
+//! file; `output` writes JSON to stdout or `--out FILE` and refuses non-finite numbers;
+//! `solvers` maps `--solver NAME` to a library solver (new solvers add one variant there);
+//! `error` is the error type every `run` returns. Subcommands: `solve` (one problem),
 //! `race` (solvers side by side); planned: `path` and `cv` (regularisation paths,
 //! cross-validation).
 //!
