@@ -298,3 +298,295 @@ fn zero_inputs_closed_forms() {
     let lam = loss.precision_of(&sol.x).unwrap();
     assert!(max_abs_diff(&lam, &gj_inverse(&s)) < 1e-8);
 }
+
+use ellone::crf::{fit, scores, Alternating, CrfMethod, CrfModel, CrfOptions};
+use ellone::Error;
+
+fn certified(name: &str) -> f64 {
+    let (_, rows) = common::read_table("longley-certified.csv");
+    rows.iter().find(|r| r[0] == name).unwrap()[1]
+        .parse()
+        .unwrap()
+}
+
+// Outside reference: NIST StRD certified values for the Longley regression (quoted from
+// memory, confirmed by exact rational arithmetic; tests/data/README.md). With q = 1,
+// λ = 0 and centring (an unpenalised intercept) the CRF's predictive mean is the OLS fit
+// and Σ = RSS/n. Standardisation is on, so this also checks the map back to the original
+// scale. The design is ill-conditioned (condition number ~1e8 unscaled), hence ~6 digits.
+#[test]
+fn longley_certified_regression() {
+    let (_, data) = common::read_numeric_table("longley.csv");
+    let y = data.slice(ndarray::s![.., 0..1]).to_owned();
+    let x = data.slice(ndarray::s![.., 1..]).to_owned();
+    let mut opts = CrfOptions::new(0.0, 0.0);
+    opts.center = true;
+    opts.standardize = true;
+    opts.solver.tol = 1e-12;
+    let fitted = fit(x.view(), y.view(), &opts).unwrap();
+    assert!(fitted.solution.converged(), "{:?}", fitted.solution.status);
+    let model = &fitted.model;
+    let s = model.covariance()[[0, 0]];
+    for j in 0..6 {
+        let b = -model.interaction()[[j, 0]] * s;
+        let c = certified(&format!("b{}", j + 1));
+        assert!((b - c).abs() < 1e-6 * c.abs(), "b{}: {b} vs {c}", j + 1);
+    }
+    let b0 = model.offset()[0];
+    assert!((b0 - certified("b0")).abs() < 1e-6 * certified("b0").abs());
+    let rss = certified("residual_ss");
+    assert!(
+        (s - rss / 16.0).abs() < 1e-7 * rss / 16.0,
+        "{s} vs {}",
+        rss / 16.0
+    );
+}
+
+// Outside reference: the maximum-likelihood closed form of a Gaussian linear model: at the
+// MLE the mean per-row negative log-likelihood on the training data is
+// ½(q·log 2π + log det Σ̂ + q), because the mean Mahalanobis term is tr(Σ̂⁻¹Σ̂) = q.
+#[test]
+fn training_nll_at_the_mle() {
+    let (x, y) = crf_data(300, 4, 3, 41);
+    let mut opts = CrfOptions::new(0.0, 0.0);
+    opts.solver.tol = 1e-11;
+    let fitted = fit(x.view(), y.view(), &opts).unwrap();
+    let nll = fitted
+        .model
+        .negative_log_likelihood(x.view(), y.view())
+        .unwrap();
+    let sigma = fitted.model.covariance().to_owned();
+    // det Σ̂ of the 3×3 matrix by cofactor expansion (independent of the crate).
+    let det3 = |a: &Array2<f64>| {
+        a[[0, 0]] * (a[[1, 1]] * a[[2, 2]] - a[[1, 2]] * a[[2, 1]])
+            - a[[0, 1]] * (a[[1, 0]] * a[[2, 2]] - a[[1, 2]] * a[[2, 0]])
+            + a[[0, 2]] * (a[[1, 0]] * a[[2, 1]] - a[[1, 1]] * a[[2, 0]])
+    };
+    let expect = 0.5 * (3.0 * (2.0 * std::f64::consts::PI).ln() + det3(&sigma).ln() + 3.0);
+    assert!((nll - expect).abs() < 1e-8, "{nll} vs {expect}");
+    // Objective identity (DESIGN.md): the unpenalised objective is 2·NLL − q·log 2π.
+    let f = fitted.solution.objective;
+    assert!((f - (2.0 * nll - 3.0 * (2.0 * std::f64::consts::PI).ln())).abs() < 1e-8);
+}
+
+fn objective_of(loss: &CrfLoss, x: &[f64]) -> f64 {
+    loss.objective(x).unwrap().unwrap()
+}
+
+// Outside reference for optimality: the KKT conditions of DESIGN.md, checked for both
+// solvers, and agreement of two different algorithms on the same convex problem.
+#[test]
+fn joint_and_alternating_agree() {
+    for (seed, (n, p, q), (ll, lt)) in [
+        (51u64, (80, 10, 5), (0.05, 0.1)),
+        (52, (40, 30, 6), (0.1, 0.15)),
+        (53, (60, 8, 8), (0.02, 0.05)),
+    ] {
+        for mode in [InputMode::Gram, InputMode::Data] {
+            let (x, y) = crf_data(n, p, q, seed);
+            let loss = loss_for(&x, &y, mode, ll, lt);
+            let opts = SolverOptions {
+                tol: 1e-10,
+                max_iter: 5000,
+                ..Default::default()
+            };
+            let pen = Penalty::l1(1.0).unwrap();
+            let joint = NewtonCd::new(opts.clone()).solve(&loss, &pen).unwrap();
+            // The alternating scheme converges linearly (block coordinate descent on coupled
+            // blocks), so it is asked for a looser KKT tolerance; the objectives must still
+            // agree to 1e-8.
+            let alt_opts = SolverOptions { tol: 1e-7, ..opts };
+            let alt = Alternating::new(alt_opts)
+                .solve(&loss, &pen, None, None)
+                .unwrap();
+            assert_converged(&loss, &joint, 1e-10);
+            assert_converged(&loss, &alt, 1e-7);
+            let (fj, fa) = (joint.objective, alt.objective);
+            assert!((fj - fa).abs() < 1e-8 * fj.abs().max(1.0), "{fj} vs {fa}");
+            assert!((objective_of(&loss, &joint.x) - fj).abs() < 1e-12 * fj.abs().max(1.0));
+            assert!(joint.nnz() > loss.precision_coordinates() / 4);
+        }
+    }
+}
+
+mod properties {
+    use super::*;
+    use proptest::prelude::*;
+
+    proptest! {
+        #![proptest_config(ProptestConfig { cases: 12, ..ProptestConfig::default() })]
+        // KKT residual below tolerance, and no random feasible perturbation (Λ stays positive
+        // definite) lowers the objective: the definition of a minimiser of a convex function.
+        #[test]
+        fn minimiser_is_not_improved(seed in 0u64..1000, ll in 0.01f64..0.3, lt in 0.01f64..0.3,
+                                     p in 2usize..8, q in 2usize..5) {
+            let (x, y) = crf_data(50, p, q, seed);
+            let loss = loss_for(&x, &y, InputMode::Auto, ll, lt);
+            let sol = solve(&loss, 1e-9);
+            assert_converged(&loss, &sol, 1e-9);
+            let f0 = sol.objective;
+            let mut rng = StdRng::seed_from_u64(seed + 7);
+            for t in 0..20 {
+                let scale = 10f64.powi(-(t % 5) - 1);
+                let trial: Vec<f64> = sol.x.iter().map(|v| {
+                    let z: f64 = StandardNormal.sample(&mut rng);
+                    v + scale * z
+                }).collect();
+                if let Some(f) = loss.objective(&trial).unwrap() {
+                    prop_assert!(f >= f0 - 1e-10 * f0.abs().max(1.0), "{} < {}", f, f0);
+                }
+            }
+        }
+    }
+}
+
+// Outside reference: the sampling distribution of Gaussian moments. For N draws from
+// N(μ, Σ) the sample mean of output j has standard error sqrt(Σ_jj / N), and the sample
+// covariance entry (i, j) has variance (Σ_ij² + Σ_ii Σ_jj) / N (Wishart second moments);
+// every entry must be within 5 standard errors (a 5σ band, common practice).
+#[test]
+fn scenario_moments_match_the_model() {
+    let (x, y) = crf_data(200, 4, 3, 61);
+    let fitted = fit(x.view(), y.view(), &CrfOptions::new(0.02, 0.02)).unwrap();
+    let model = &fitted.model;
+    let x0 = x.row(3);
+    let n = 100_000;
+    let s = model.sample(x0, n, 2024).unwrap();
+    assert_eq!(
+        s,
+        model.sample(x0, n, 2024).unwrap(),
+        "seeded draws reproduce"
+    );
+    let mu = model.predict(x0.insert_axis(ndarray::Axis(0))).unwrap();
+    let sigma = model.covariance();
+    let mean = s.mean_axis(ndarray::Axis(0)).unwrap();
+    for j in 0..3 {
+        let se = (sigma[[j, j]] / n as f64).sqrt();
+        assert!((mean[j] - mu[[0, j]]).abs() < 5.0 * se, "mean {j}");
+    }
+    let c = &s - &mean;
+    let cov = c.t().dot(&c) / n as f64;
+    for i in 0..3 {
+        for j in 0..3 {
+            let se = ((sigma[[i, j]].powi(2) + sigma[[i, i]] * sigma[[j, j]]) / n as f64).sqrt();
+            assert!(
+                (cov[[i, j]] - sigma[[i, j]]).abs() < 5.0 * se,
+                "cov {i},{j}"
+            );
+        }
+    }
+}
+
+// Outside reference: the closed-form CRPS of a normal forecast ("Strictly proper scoring
+// rules, prediction, and estimation", JASA, 2007). The sample CRPS of m draws has Monte
+// Carlo error O(σ/√m); with m = 20 000 a tolerance of 0.02σ is > 5 standard errors
+// (the variance of |X − y| is below σ² + (y−μ)², common practice bound).
+#[test]
+fn sample_scores_match_the_gaussian_closed_form() {
+    let (x, y) = crf_data(200, 4, 3, 71);
+    let fitted = fit(x.view(), y.view(), &CrfOptions::new(0.02, 0.02)).unwrap();
+    let model = &fitted.model;
+    let s = model.sample(x.row(5), 20_000, 9).unwrap();
+    let mu = model.predict(x.slice(ndarray::s![5..6, ..])).unwrap();
+    let got = scores::crps(s.view(), y.row(5)).unwrap();
+    for j in 0..3 {
+        let sd = model.covariance()[[j, j]].sqrt();
+        let exact = scores::gaussian_crps(mu[[0, j]], sd, y[[5, j]]).unwrap();
+        assert!(
+            (got[j] - exact).abs() < 0.02 * sd,
+            "{j}: {} vs {exact}",
+            got[j]
+        );
+    }
+    // With q = 1 the energy score is the CRPS (same definition, Euclidean norm in 1-D).
+    let col = s.slice(ndarray::s![.., 1..2]);
+    let es = scores::energy_score(col, y.slice(ndarray::s![5, 1..2])).unwrap();
+    assert!((es - got[1]).abs() < 1e-9 * got[1].abs().max(1.0));
+    let sc = model
+        .scenario_scores(
+            x.slice(ndarray::s![0..4, ..]),
+            y.slice(ndarray::s![0..4, ..]),
+            500,
+            1,
+        )
+        .unwrap();
+    assert!(sc.energy > 0.0 && sc.crps.iter().all(|v| *v > 0.0));
+}
+
+#[test]
+fn model_json_round_trip() {
+    let (x, y) = crf_data(100, 5, 3, 81);
+    let mut opts = CrfOptions::new(0.05, 0.05);
+    opts.center = true;
+    let fitted = fit(x.view(), y.view(), &opts).unwrap();
+    let text = fitted.model.to_json().unwrap();
+    let back = CrfModel::from_json(&text).unwrap();
+    assert_eq!(back.precision(), fitted.model.precision());
+    assert_eq!(back.interaction(), fitted.model.interaction());
+    assert_eq!(back.offset(), fitted.model.offset());
+    assert_eq!(
+        back.predict(x.view()).unwrap(),
+        fitted.model.predict(x.view()).unwrap()
+    );
+    assert!(matches!(
+        CrfModel::from_json("{\"precision\": 3"),
+        Err(Error::Parse { .. })
+    ));
+    // A non-positive-definite precision is refused on load.
+    let bad = text.replacen("\"data\":[", "\"data\":[-", 1);
+    assert!(CrfModel::from_json(&bad).is_err());
+}
+
+#[test]
+fn bad_input_is_a_typed_error() {
+    let (x, y) = crf_data(20, 3, 2, 91);
+    let opts = CrfOptions::new(0.1, 0.1);
+    let short = y.slice(ndarray::s![..19, ..]);
+    assert!(matches!(
+        fit(x.view(), short, &opts),
+        Err(Error::ShapeMismatch { .. })
+    ));
+    let mut xn = x.clone();
+    xn[[4, 1]] = f64::NAN;
+    assert!(matches!(
+        fit(xn.view(), y.view(), &opts),
+        Err(Error::NonFinite { .. })
+    ));
+    let mut yn = y.clone();
+    yn[[2, 0]] = f64::INFINITY;
+    assert!(matches!(
+        fit(x.view(), yn.view(), &opts),
+        Err(Error::NonFinite { .. })
+    ));
+    let empty = Array2::<f64>::zeros((20, 0));
+    assert!(matches!(
+        fit(x.view(), empty.view(), &opts),
+        Err(Error::Empty(_))
+    ));
+    for (a, b) in [(-0.1, 0.1), (0.1, -1.0), (f64::NAN, 0.1)] {
+        assert!(matches!(
+            fit(x.view(), y.view(), &CrfOptions::new(a, b)),
+            Err(Error::InvalidLambda { .. })
+        ));
+    }
+    let mut yc = y.clone();
+    yc.column_mut(1).fill(0.0);
+    assert!(matches!(
+        fit(x.view(), yc.view(), &opts),
+        Err(Error::Unbounded(_))
+    ));
+    let fitted = fit(x.view(), y.view(), &opts).unwrap();
+    let wrong = Array2::<f64>::zeros((2, 4));
+    assert!(matches!(
+        fitted.model.predict(wrong.view()),
+        Err(Error::ShapeMismatch { .. })
+    ));
+    assert!(fitted.model.sample(x.row(0), 0, 1).is_err());
+    let mut alt = CrfOptions::new(0.1, 0.1);
+    alt.method = CrfMethod::Alternating;
+    alt.solver.tol = -1.0;
+    assert!(matches!(
+        fit(x.view(), y.view(), &alt),
+        Err(Error::InvalidArgument(_))
+    ));
+}

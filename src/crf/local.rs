@@ -112,16 +112,27 @@ fn dot(a: &[f64], b: &[f64]) -> f64 {
 }
 
 impl<'a> CrfLocal<'a> {
-    pub(crate) fn new(loss: &'a CrfLoss, x: &[f64]) -> Result<Self> {
+    /// The model at x. With `theta_block = false` only the Λ block is usable: M = S_xxΘΣ
+    /// (the one O(n·p·q) product) is not formed, the Θ part of the gradient is left at 0 and
+    /// no row is registered, so the caller must not touch Θ coordinates (the alternating
+    /// solver's Λ-step).
+    pub(crate) fn new(loss: &'a CrfLoss, x: &[f64], theta_block: bool) -> Result<Self> {
         let data = &loss.data;
         let (p, q, nl) = (data.p, data.q, loss.nl);
-        let st = loss.state(x).ok_or_else(|| {
+        let st = loss.state(x, !theta_block).ok_or_else(|| {
             Error::InvalidArgument("the precision matrix is not positive definite".into())
         })?;
-        let (m, psi) = data.products(&st.rows, st.block.view(), st.sigma.view());
+        let (m, psi) = if theta_block {
+            data.products(&st.rows, st.block.view(), st.sigma.view())
+        } else {
+            (Array2::zeros((p, q)), st.psi)
+        };
         let phi = sandwich(&st.sigma, &psi);
         let mut g = vec![0.0; loss.dim_total()];
         loss.write_gradient(&st.sigma, &phi, &m, &mut g);
+        if !theta_block {
+            g[nl..].iter_mut().for_each(|v| *v = 0.0);
+        }
         let tr: f64 = st.sigma.iter().zip(psi.iter()).map(|(a, b)| a * b).sum();
         let base = loss.linear_part(x, &st.lam);
         let f = -st.log_det + base + tr;
@@ -133,7 +144,9 @@ impl<'a> CrfLocal<'a> {
         let theta = &x[nl..];
         let gt = &g[nl..];
         let predicted: Vec<usize> = (0..p)
-            .filter(|&i| (0..q).any(|j| theta[i * q + j] != 0.0 || gt[i * q + j].abs() >= lt))
+            .filter(|&i| {
+                theta_block && (0..q).any(|j| theta[i * q + j] != 0.0 || gt[i * q + j].abs() >= lt)
+            })
             .collect();
         let r = predicted.len();
         let cap = r.max(16);

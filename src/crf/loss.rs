@@ -211,14 +211,19 @@ impl CrfLoss {
         (rows, block)
     }
 
-    /// Σ, log det Λ and Ψ at x; `None` if Λ is not positive definite.
-    pub(crate) fn state(&self, x: &[f64]) -> Option<State> {
+    /// Σ, log det Λ and (if `with_psi`; else an empty matrix) Ψ at x; `None` if Λ is not
+    /// positive definite.
+    pub(crate) fn state(&self, x: &[f64], with_psi: bool) -> Option<State> {
         let lam = self.lambda_matrix(x);
         let ch = cholesky(lam.view())?;
         let log_det = ch.log_det();
         let sigma = ch.inverse();
         let (rows, block) = self.theta_rows(x);
-        let psi = self.data.quadratic(&rows, block.view());
+        let psi = if with_psi {
+            self.data.quadratic(&rows, block.view())
+        } else {
+            Array2::zeros((0, 0))
+        };
         Some(State {
             lam,
             sigma,
@@ -286,14 +291,14 @@ impl Loss for CrfLoss {
     }
 
     fn value(&self, x: &[f64]) -> Option<f64> {
-        let st = self.state(x)?;
+        let st = self.state(x, true)?;
         let tr: f64 = st.sigma.iter().zip(st.psi.iter()).map(|(a, b)| a * b).sum();
         let f = -st.log_det + self.linear_part(x, &st.lam) + tr;
         f.is_finite().then_some(f)
     }
 
     fn gradient(&self, x: &[f64], g: &mut [f64]) {
-        let Some(st) = self.state(x) else {
+        let Some(st) = self.state(x, false) else {
             g.iter_mut().for_each(|v| *v = f64::NAN);
             return;
         };
@@ -305,7 +310,7 @@ impl Loss for CrfLoss {
     }
 
     fn hess_vec(&self, x: &[f64], v: &[f64], out: &mut [f64]) {
-        let Some(st) = self.state(x) else {
+        let Some(st) = self.state(x, false) else {
             out.iter_mut().for_each(|o| *o = f64::NAN);
             return;
         };
@@ -372,6 +377,6 @@ impl Loss for CrfLoss {
     }
 
     fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
-        Ok(Box::new(CrfLocal::new(self, x)?))
+        Ok(Box::new(CrfLocal::new(self, x, true)?))
     }
 }
