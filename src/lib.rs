@@ -3,6 +3,7 @@
 
 pub mod crf;
 pub mod cv;
+pub mod cv_precision;
 pub mod design;
 pub mod error;
 pub mod io;
@@ -10,6 +11,8 @@ pub mod linalg;
 pub mod loss;
 pub mod path;
 pub mod precision;
+#[cfg(feature = "cli")]
+pub mod plot;
 pub mod penalty;
 pub mod race;
 #[cfg(feature = "cli")]

@@ -111,7 +111,8 @@ pub struct PathPoint {
     pub seconds: f64,
     /// Solver status of the last solve at this λ.
     pub status: Status,
-    /// Coordinates discarded by the strong rule (before the KKT check).
+    /// Coordinates discarded by screening (the strong rule and any exact rule of the loss),
+    /// before the KKT check.
     pub screened: usize,
     /// Discarded coordinates that the KKT check had to add back.
     pub violations: usize,
@@ -270,14 +271,21 @@ pub fn fit_path(
         let t = Instant::now();
         let pen_l = penalty.with_lambda(lambda)?;
         let resolved = ResolvedPenalty::new(&pen_l, m, |k| loss.penalty_factor(k))?;
-        // Strong set: non-zeros, unpenalised, and coordinates passing the sequential rule.
+        // Strong set: non-zeros, unpenalised, and coordinates passing the sequential rule,
+        // less the coordinates the loss proves zero (an exact rule; see Loss::provably_zero).
         let cut = 2.0 * lambda - prev_lambda;
+        let proven = if opts.screening {
+            loss.provably_zero(&resolved).filter(|z| z.len() == m)
+        } else {
+            None
+        };
         let mut screened = 0;
         for k in 0..m {
             let keep = !opts.screening
                 || x[k] != 0.0
                 || unit.l1[k] == 0.0
                 || (g[k] + resolved.l2[k] * x[k]).abs() >= cut * unit.l1[k];
+            let keep = keep && !(x[k] == 0.0 && proven.as_ref().is_some_and(|z| z[k]));
             working[k] = keep;
             if !keep {
                 screened += 1;

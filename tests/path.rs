@@ -3,6 +3,7 @@
 mod common;
 
 use common::*;
+use ellone::cv_precision::PrecisionProblem;
 use ellone::path::{fit_path, lambda_max, PathOptions};
 use ellone::solver::{NewtonCd, Solver, SolverOptions};
 use ellone::{LeastSquares, Logistic, Loss, Penalty};
@@ -93,4 +94,81 @@ fn logistic_path_is_exact() {
     let y: Vec<f64> = data.column(3).to_vec();
     let loss = Logistic::from_dense(x.view(), &y, true).unwrap();
     check_path(&loss, (32, 3), 30);
+}
+
+/// Macrodata correlation matrix (tests/data), sparse precision path with the exact block
+/// screening: KKT over all 78 coordinates at every point, equal to cold starts.
+#[test]
+fn precision_path_is_exact() {
+    let s = read_matrix("macrodata-corr.csv");
+    let loss = PrecisionProblem::from_covariance(s.view(), false).unwrap();
+    check_path(&loss, (12, 12), 25);
+}
+
+/// The path through the λ of the reference fixtures reproduces their optimal objectives
+/// (tests/data/macrodata-precision-objectives.csv: a conic interior-point solve, polished),
+/// and the block rule discards entries at the large λ (at λ = 0.4 the reference solution has
+/// 58 off-diagonal non-zeros of 132, so at least one pair of variables is split).
+#[test]
+fn precision_path_matches_reference_objectives() {
+    let s = read_matrix("macrodata-corr.csv");
+    let loss = PrecisionProblem::from_covariance(s.view(), false).unwrap();
+    let (_, rows) = read_table("macrodata-precision-objectives.csv");
+    let field = |r: usize, c: usize| -> f64 { rows[r][c].parse().unwrap() };
+    let lambdas: Vec<f64> = (0..rows.len()).map(|r| field(r, 0)).collect();
+    let path = fit_path(
+        &loss,
+        &Penalty::l1(1.0).unwrap(),
+        (12, 12),
+        &PathOptions {
+            lambdas: Some(lambdas.clone()),
+            ..Default::default()
+        },
+    )
+    .unwrap();
+    for point in &path.points {
+        let row = lambdas.iter().position(|&l| l == point.lambda).unwrap();
+        let reference = field(row, 1);
+        assert!(
+            (point.objective - reference).abs() <= 1e-8 * reference.abs(),
+            "λ={}: {} vs reference {reference}",
+            point.lambda,
+            point.objective
+        );
+        let offdiag_nnz = 2 * point
+            .x
+            .indices
+            .iter()
+            .filter(|&&k| loss.penalty_factor(k) != 0.0)
+            .count();
+        assert_eq!(offdiag_nnz as f64, field(row, 4), "λ={}", point.lambda);
+    }
+    // With the exact rule on, the largest λ (0.4) screens at least the entries between
+    // blocks; the unscreened path discards nothing.
+    let blocks = ellone::precision::screening_blocks(s.view(), 0.4, None).unwrap();
+    assert!(blocks.len() > 1, "{blocks:?}");
+    assert!(path.points[0].screened > 0);
+    // The mask is exactly the pairs split between blocks, and the solution is zero there.
+    let resolved = ellone::penalty::ResolvedPenalty::new(&Penalty::l1(0.4).unwrap(), 78, |k| {
+        loss.penalty_factor(k)
+    })
+    .unwrap();
+    let mask = loss.provably_zero(&resolved).unwrap();
+    let block_of = |v: usize| blocks.iter().position(|b| b.contains(&v)).unwrap();
+    let theta = loss
+        .log_det()
+        .to_matrix(&path.points[0].x.to_dense())
+        .unwrap();
+    for (k, &zero) in mask.iter().enumerate() {
+        let (i, j) = loss.log_det().entry(k).unwrap();
+        assert_eq!(
+            zero,
+            i != j && block_of(i) != block_of(j),
+            "entry ({i}, {j})"
+        );
+        if zero {
+            assert_eq!(theta[[i, j]], 0.0);
+        }
+    }
+    assert!(mask.iter().any(|&z| z));
 }

@@ -92,6 +92,15 @@ pub trait Loss: Send + Sync {
         None
     }
 
+    /// An exact screening rule: a mask (length m) of coordinates that are provably zero at
+    /// the solution for the resolved penalty `penalty` (for example the block-diagonal rule
+    /// of a precision matrix), or `None` (the default) when the loss knows no such rule.
+    /// Regularisation paths leave these coordinates out of the working set; their KKT check
+    /// still covers them.
+    fn provably_zero(&self, _penalty: &ResolvedPenalty) -> Option<Vec<bool>> {
+        None
+    }
+
     /// A local model whose gradient is only needed on the coordinates in `subset` (entries
     /// outside it may be left at zero). Screening along a regularisation path uses it so a
     /// solve on a small working set does not pay for a full gradient pass each iteration.
