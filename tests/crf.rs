@@ -590,3 +590,26 @@ fn bad_input_is_a_typed_error() {
         Err(Error::InvalidArgument(_))
     ));
 }
+
+// Cross-check with the crate's separate precision estimator (a different code path: block
+// screening and its own log-det local model): with X = 0 the CRF's Λ must match it on
+// S_yy. The external reference for both is the conic-solver fixture tested above.
+#[test]
+fn zero_inputs_match_the_precision_estimator() {
+    use ellone::precision::{estimate_precision, PrecisionInput, PrecisionOptions};
+    let y = crf_data(80, 3, 6, 101).1;
+    let x = Array2::zeros((80, 3));
+    let s = y.t().dot(&y) / 80.0;
+    let mut popts = PrecisionOptions::default();
+    popts.solver.tol = 1e-11;
+    for lambda in [0.02, 0.1, 0.3] {
+        let reference =
+            estimate_precision(PrecisionInput::Covariance(s.view()), lambda, &popts).unwrap();
+        let loss = loss_for(&x, &y, InputMode::Auto, lambda, 0.1);
+        let sol = solve(&loss, 1e-11);
+        assert_converged(&loss, &sol, 1e-11);
+        let lam = loss.precision_of(&sol.x).unwrap();
+        assert!(max_abs_diff(&lam, &reference.precision) < 1e-7);
+        assert!((sol.objective - reference.objective).abs() < 1e-10 * sol.objective.abs().max(1.0));
+    }
+}
