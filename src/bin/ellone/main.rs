@@ -20,9 +20,11 @@
 //! command-line usage error. Nothing here panics on bad input; every failure becomes a
 //! one-line message on stderr.
 
+mod cv;
 mod error;
 mod input;
 mod output;
+mod path;
 mod race;
 mod solve;
 mod solvers;
@@ -48,6 +50,10 @@ enum Command {
     Solve(solve::Args),
     /// Race several solvers on one problem: traces as CSV, convergence plot as SVG.
     Race(race::Args),
+    /// Regularisation path over a λ grid (warm starts, screening): JSON, CSV, SVG plot.
+    Path(path::Args),
+    /// K-fold cross-validation over a λ grid; the minimum and one-standard-error choices.
+    Cv(cv::Args),
 }
 
 /// Runs the chosen subcommand.
@@ -55,6 +61,8 @@ fn dispatch(command: &Command) -> CliResult<()> {
     match command {
         Command::Solve(args) => solve::run(args),
         Command::Race(args) => race::run(args),
+        Command::Path(args) => path::run(args),
+        Command::Cv(args) => cv::run(args),
     }
 }
 
