@@ -7,18 +7,23 @@
 //! for each solver and the ratio baseline/Newton-CD (">" when the baseline did not reach
 //! the target within the budget: the ratio is then a lower bound).
 //!
-//! Problems (synthetic, seeded; the parameter counts are per block):
-//! * logistic: n = 2000, p = 1000 dense N(0,1) features, 20 true non-zero coefficients,
-//!   labels drawn from the logistic model, intercept, λ = 0.05·λ_max;
-//! * least squares: the same design, Gaussian noise, λ = 0.05·λ_max;
+//! Problems (synthetic, seeded; the parameter counts are per block), each in an easy
+//! (well-conditioned, very sparse) and a harder (correlated or denser) version:
+//! * logistic: n = 2000, p = 1000 independent N(0,1) features, 20 true non-zero
+//!   coefficients, labels drawn from the logistic model, intercept, λ = 0.05·λ_max;
+//!   logistic-correlated: n = 1000, p = 2000, AR(1) correlation 0.9 between neighbouring
+//!   columns, λ = 0.02·λ_max;
+//! * least-squares(-correlated): the same designs, Gaussian noise, same λ ratios;
 //! * precision: p = 1000 (500 500 coordinates), the sparse-graph data of benches/precision.rs
 //!   (each variable linked to 2 others, n = p/2 + 200 samples), λ at the 99% quantile of
-//!   the off-diagonal |S_ij|; all solvers on the same log-det loss (no block screening);
+//!   the off-diagonal |S_ij|; precision-dense: λ at the 95% quantile; all solvers on the
+//!   same log-det loss (no block screening);
 //! * Gaussian CRF: p = 40 inputs, q = 45 outputs (Λ: 1035 coordinates, Θ: 1800), n = 400,
 //!   sparse true Λ (chain) and Θ (each output driven by 2 inputs), λ_Λ = λ_Θ = 0.05.
 //!
 //! Environment: `ELLONE_BENCH_LOSSES` (comma-separated subset of
-//! "logistic,least-squares,precision,crf"; default all), `ELLONE_BENCH_BUDGET` (seconds per
+//! "logistic,logistic-correlated,least-squares,least-squares-correlated,precision,
+//! precision-dense,crf"; default all), `ELLONE_BENCH_BUDGET` (seconds per
 //! solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
 //! target/bench-baselines).
 
@@ -51,10 +56,25 @@ fn lambda_max(x: &Array2<f64>, y: &[f64]) -> f64 {
         .fold(0.0, f64::max)
 }
 
-fn linear_problem(logistic: bool) -> (Box<dyn Loss>, Penalty) {
+/// A linear-predictor problem: n × p N(0,1) features, made AR(1)-correlated across columns
+/// with coefficient `rho` (x_j ← ρ x_{j−1} + √(1−ρ²) x_j), and λ = `ratio`·λ_max.
+fn linear_problem(
+    logistic: bool,
+    n: usize,
+    p: usize,
+    rho: f64,
+    ratio: f64,
+) -> (Box<dyn Loss>, Penalty) {
     let mut rng = StdRng::seed_from_u64(11);
-    let (n, p) = (2000, 1000);
-    let x = normal_matrix(&mut rng, n, p);
+    let mut x = normal_matrix(&mut rng, n, p);
+    if rho != 0.0 {
+        let c = (1.0 - rho * rho).sqrt();
+        for i in 0..n {
+            for j in 1..p {
+                x[[i, j]] = rho * x[[i, j - 1]] + c * x[[i, j]];
+            }
+        }
+    }
     let mut beta = vec![0.0; p];
     for b in beta.iter_mut().take(20) {
         *b = if rng.random::<f64>() < 0.5 { -1.0 } else { 1.0 } * rng.random_range(0.5..1.5);
@@ -74,7 +94,7 @@ fn linear_problem(logistic: bool) -> (Box<dyn Loss>, Penalty) {
             }
         })
         .collect();
-    let lambda = 0.05 * lambda_max(&x, &y);
+    let lambda = ratio * lambda_max(&x, &y);
     let pen = Penalty::l1(lambda).expect("valid λ");
     if logistic {
         (
@@ -89,8 +109,9 @@ fn linear_problem(logistic: bool) -> (Box<dyn Loss>, Penalty) {
     }
 }
 
-/// The sparse-graph covariance of benches/precision.rs.
-fn precision_problem() -> (Box<dyn Loss>, Penalty) {
+/// The sparse-graph covariance of benches/precision.rs, λ at the `quantile` of the
+/// off-diagonal |S_ij|.
+fn precision_problem(quantile: f64) -> (Box<dyn Loss>, Penalty) {
     let p = 1000;
     let mut rng = StdRng::seed_from_u64(1000);
     let mut theta = Array2::<f64>::zeros((p, p));
@@ -124,7 +145,7 @@ fn precision_problem() -> (Box<dyn Loss>, Penalty) {
         }
     }
     off.sort_by(f64::total_cmp);
-    let lambda = off[(off.len() as f64 * 0.99) as usize];
+    let lambda = off[(off.len() as f64 * quantile) as usize];
     let loss = LogDet::new(s.view(), false).expect("valid covariance");
     (Box::new(loss), Penalty::l1(lambda).expect("valid λ"))
 }
@@ -219,8 +240,11 @@ fn report(name: &str, result: &RaceResult, budget: f64) {
 
 fn main() {
     // `cargo bench` passes `--bench`; nothing else to parse.
-    let losses = std::env::var("ELLONE_BENCH_LOSSES")
-        .unwrap_or_else(|_| "logistic,least-squares,precision,crf".into());
+    let losses = std::env::var("ELLONE_BENCH_LOSSES").unwrap_or_else(|_| {
+        "logistic,logistic-correlated,least-squares,least-squares-correlated,precision,\
+             precision-dense,crf"
+            .into()
+    });
     let budget: f64 = std::env::var("ELLONE_BENCH_BUDGET")
         .ok()
         .and_then(|s| s.parse().ok())
@@ -237,9 +261,12 @@ fn main() {
     );
     for name in losses.split(',').map(str::trim) {
         let (loss, pen) = match name {
-            "logistic" => linear_problem(true),
-            "least-squares" => linear_problem(false),
-            "precision" => precision_problem(),
+            "logistic" => linear_problem(true, 2000, 1000, 0.0, 0.05),
+            "logistic-correlated" => linear_problem(true, 1000, 2000, 0.9, 0.02),
+            "least-squares" => linear_problem(false, 2000, 1000, 0.0, 0.05),
+            "least-squares-correlated" => linear_problem(false, 1000, 2000, 0.9, 0.02),
+            "precision" => precision_problem(0.99),
+            "precision-dense" => precision_problem(0.95),
             "crf" => crf_problem(),
             other => {
                 eprintln!("unknown loss '{other}' in ELLONE_BENCH_LOSSES; skipped");
