@@ -15,11 +15,12 @@
 mod common;
 
 use common::*;
+use ellone::crf::{Alternating, CrfData, CrfLoss, InputMode};
 use ellone::loss::precision::LogDet;
 use ellone::penalty::ResolvedPenalty;
 use ellone::solver::{
-    certify, Admm, Control, Fista, NewtonCd, Owlqn, Solution, Solver, SolverOptions, Status,
-    TraceRecord,
+    certify, Admm, Control, Fista, NewtonCd, Observer, Owlqn, Solution, Solver, SolverOptions,
+    Status, TraceRecord,
 };
 use ellone::{LeastSquares, Logistic, Loss, Penalty};
 use std::time::Duration;
@@ -93,6 +94,32 @@ fn macrodata_precision() -> (LogDet, Penalty, f64) {
     let f_star: f64 = row[col("optimal_objective")].parse().unwrap();
     let loss = LogDet::new(s.view(), false).unwrap();
     (loss, Penalty::l1(0.2).unwrap(), f_star)
+}
+
+/// The Gaussian CRF with one output on NIST Longley (tests/data/longley.csv): inputs the
+/// six regressors and a constant column, λ = 0. Minimising over Θ and then Λ in closed form
+/// gives the optimum log(RSS/n) + 1, with RSS the certified residual sum of squares
+/// (tests/data/longley-certified.csv).
+fn longley_crf() -> (CrfLoss, Penalty, f64) {
+    let (header, data) = read_numeric_table("longley.csv");
+    let n = data.nrows();
+    let col = |name: &str| header.iter().position(|h| h == name).unwrap();
+    let x = ndarray::Array2::from_shape_fn((n, 7), |(i, j)| {
+        if j == 6 {
+            1.0
+        } else {
+            data[[i, col(&format!("x{}", j + 1))]]
+        }
+    });
+    let y = ndarray::Array2::from_shape_fn((n, 1), |(i, _)| data[[i, col("y")]]);
+    let (ch, cert) = read_table("longley-certified.csv");
+    let value = ch.iter().position(|h| h == "value").unwrap();
+    let rss: f64 = cert.iter().find(|r| r[0] == "residual_ss").unwrap()[value]
+        .parse()
+        .unwrap();
+    let data = CrfData::new(x.view(), y.view(), false, false, InputMode::Auto).unwrap();
+    let loss = CrfLoss::new(data, 0.0, 0.0).unwrap();
+    (loss, Penalty::l1(1.0).unwrap(), (rss / n as f64).ln() + 1.0)
 }
 
 /// Runs `solver` with an observer that stops at iteration `k`; returns the solution and the
@@ -210,10 +237,12 @@ fn time_limit_honoured_within_one_outer_iteration() {
     let (ls, ls_pen, ls_star) = macrodata_lasso();
     let (lg, lg_pen, lg_star) = spector_logit();
     let (pr, pr_pen, pr_star) = macrodata_precision();
-    let problems: [(&str, &dyn Loss, &Penalty, f64); 3] = [
+    let (cr, cr_pen, cr_star) = longley_crf();
+    let problems: [(&str, &dyn Loss, &Penalty, f64); 4] = [
         ("macrodata lasso", &ls, &ls_pen, ls_star),
         ("spector logit", &lg, &lg_pen, lg_star),
         ("macrodata precision", &pr, &pr_pen, pr_star),
+        ("longley crf", &cr, &cr_pen, cr_star),
     ];
     for (name, loss, pen, f_star) in problems {
         for solver in solvers(opts.clone()) {
@@ -267,5 +296,29 @@ fn iteration_limit_is_exact() {
                 "{tag}"
             );
         }
+    }
+}
+
+#[test]
+fn observer_stops_crf() {
+    let (loss, pen, f_star) = longley_crf();
+    stop_every_solver_at_every_k("longley crf", &loss, &pen, f_star);
+    // The CRF's own alternating solver.
+    let alternating = Alternating::new(options());
+    for k in 0..5 {
+        let mut seen = Vec::new();
+        let mut observer = |r: &TraceRecord| {
+            seen.push(r.clone());
+            if r.iteration >= k {
+                Control::Stop
+            } else {
+                Control::Continue
+            }
+        };
+        let sol = alternating
+            .solve(&loss, &pen, None, Some(&mut observer as &mut dyn Observer))
+            .unwrap();
+        let tag = format!("longley crf / alternating / stop at {k}");
+        check_stopped(&tag, &loss, &pen, f_star, k, &sol, &seen);
     }
 }

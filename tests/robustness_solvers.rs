@@ -84,6 +84,20 @@ fn check_error(e: &Error) {
     );
 }
 
+/// As [`check_error`], but a `Numerical` error is accepted when the data hold magnitudes
+/// ≥ 1e100, whose squares (≥ 1e200, summed and factorised) leave ADMM's closed-form
+/// x-update without a representable answer (see `admm_huge_magnitudes`).
+fn check_error_huge(e: &Error, huge: bool) {
+    if huge && matches!(e, Error::Numerical(_)) {
+        return;
+    }
+    check_error(e);
+}
+
+fn has_huge(vals: &[f64]) -> bool {
+    vals.iter().any(|v| v.is_finite() && v.abs() >= 1e100)
+}
+
 /// The contract of an Ok solution of `loss + pen` solved with tolerance `tol`.
 fn check_solution(loss: &dyn Loss, pen: &Penalty, tol: f64, sol: &Solution) {
     assert!(sol.objective.is_finite(), "objective {}", sol.objective);
@@ -148,7 +162,7 @@ proptest! {
                 for solver in baselines() {
                     match solver.solve(loss.as_ref(), &pen) {
                         Ok(sol) => check_solution(loss.as_ref(), &pen, limits().tol, &sol),
-                        Err(e) => check_error(&e),
+                        Err(e) => check_error_huge(&e, has_huge(&vals)),
                     }
                 }
             }
@@ -357,6 +371,54 @@ proptest! {
             }
             Err(e) => check_error(&e),
         }
+    }
+}
+
+/// Regression (found by `baselines_never_panic` at 1500 cases): x = (1e150, 0, 0)ᵀ,
+/// y = (0, 0, 1e150), intercept, λ = 0. Newton-CD solves it; ADMM's closed-form x-update
+/// (an eigen-decomposition of AᵀA/n, entries ≈ 3e299) cannot, and must say so with a typed
+/// error or return a certified point, never a silent wrong one.
+#[test]
+fn admm_huge_magnitudes() {
+    let x = Array2::from_shape_vec((3, 1), vec![1e150, 0.0, 0.0]).unwrap();
+    let y = [0.0, 0.0, 1e150];
+    let loss = LeastSquares::from_dense(x.view(), &y, true).unwrap();
+    let pen = Penalty::l1(0.0).unwrap();
+    let sol = NewtonCd::new(limits()).solve(&loss, &pen).unwrap();
+    check_solution(&loss, &pen, limits().tol, &sol);
+    match Admm::new(limits()).solve(&loss, &pen) {
+        Ok(sol) => check_solution(&loss, &pen, limits().tol, &sol),
+        Err(e) => assert!(matches!(e, Error::Numerical(_)), "{e}"),
+    }
+}
+
+/// Regression (found by `precision_never_panics` at 1500 cases): data with one entry
+/// 1e150 (S_11 ≈ 3e299), a penalised diagonal, λ = 1e12 and standardisation. The estimate on
+/// the correlation scale is Σ̂_R = 1 + λ; mapped back, Σ̂_11 = S_11·(1 + 1e12) overflows.
+/// An Ok result must not carry ±Inf: the estimator should return a typed error instead.
+/// Ignored until src/precision.rs checks its outputs (reported to the lead).
+#[test]
+#[ignore = "open: estimate_precision returns an infinite covariance (src/precision.rs)"]
+fn precision_overflowing_covariance() {
+    let x = Array2::from_shape_vec((3, 1), vec![1e150, 0.0, 0.0]).unwrap();
+    let opts = PrecisionOptions {
+        penalize_diagonal: true,
+        screening: false,
+        centre: false,
+        standardise: true,
+        solver: limits(),
+        ..Default::default()
+    };
+    match estimate_precision(PrecisionInput::Data(x.view()), 1e12, &opts) {
+        Ok(fit) => {
+            assert!(fit.precision.iter().all(|v| v.is_finite()));
+            assert!(
+                fit.covariance.iter().all(|v| v.is_finite()),
+                "{:?}",
+                fit.covariance
+            );
+        }
+        Err(e) => check_error_huge(&e, true),
     }
 }
 
