@@ -225,3 +225,89 @@ fn race_plot_renders_and_orders_lines() {
         }
     }
 }
+
+/// Headerless copy of a tests/data CSV (the command-line tool reads plain numeric CSV).
+fn headerless(name: &str) -> PathBuf {
+    let text = std::fs::read_to_string(data_path(name)).unwrap();
+    let body: Vec<&str> = text.lines().skip(1).collect();
+    let path = tmp(name);
+    std::fs::write(&path, body.join("\n") + "\n").unwrap();
+    path
+}
+
+/// `ellone race` end to end on the macrodata lasso at λ = 0.06692: exit 0, the CSV and SVG
+/// written, a JSON ranking of all four solvers, and the reference objective equal to the
+/// conic-solver fixture (tests/data/README.md).
+#[test]
+fn cli_race_writes_csv_plot_and_ranking() {
+    let exe = env!("CARGO_BIN_EXE_ellone");
+    let (x, y) = (
+        headerless("macrodata-lasso-X.csv"),
+        headerless("macrodata-lasso-y.csv"),
+    );
+    let (csv, svg) = (tmp("cli.csv"), tmp("cli.svg"));
+    let out = std::process::Command::new(exe)
+        .args([
+            "race",
+            "--loss",
+            "least-squares",
+            "--intercept",
+            "--lambda",
+            "0.06692",
+        ])
+        .arg("--x")
+        .arg(&x)
+        .arg("--y")
+        .arg(&y)
+        .args(["--solvers", "newton-cd,fista,admm,owl-qn", "--budget", "30"])
+        .arg("--csv")
+        .arg(&csv)
+        .arg("--plot")
+        .arg(&svg)
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let report: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let ranking = report["ranking"].as_array().unwrap();
+    assert_eq!(ranking.len(), 4);
+    for r in ranking {
+        assert!(r["seconds_to_target"].is_number(), "{r}");
+    }
+    let reference = report["reference_objective"].as_f64().unwrap();
+    let fixture = 0.8939610435815615; // macrodata-lasso-solutions.csv, λ = 0.06692
+    assert!((reference - fixture).abs() <= 1e-12 * fixture);
+    let rows = parse_csv(&std::fs::read_to_string(&csv).unwrap());
+    let order = order_from_csv(&rows, report["target"].as_f64().unwrap());
+    let from_json: Vec<String> = ranking
+        .iter()
+        .map(|r| r["solver"].as_str().unwrap().to_string())
+        .collect();
+    assert_eq!(order, from_json);
+    assert!(std::fs::read_to_string(&svg).unwrap().starts_with("<svg"));
+
+    // An unknown solver is a usage error with a message, not a panic.
+    let bad = std::process::Command::new(exe)
+        .args([
+            "race",
+            "--loss",
+            "least-squares",
+            "--lambda",
+            "0.1",
+            "--solvers",
+            "simplex",
+        ])
+        .arg("--x")
+        .arg(&x)
+        .arg("--y")
+        .arg(&y)
+        .arg("--csv")
+        .arg(tmp("bad.csv"))
+        .output()
+        .unwrap();
+    assert_eq!(bad.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&bad.stderr).contains("unknown solver"));
+}
