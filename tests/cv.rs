@@ -2,9 +2,9 @@
 
 use ellone::cv::{assign_folds, cross_validate, CvOptions};
 use ellone::path::PathOptions;
-use ellone::{LeastSquares, Penalty};
+use ellone::{LeastSquares, Logistic, Penalty};
 use ndarray::Array2;
-use rand::{rngs::StdRng, SeedableRng};
+use rand::{rngs::StdRng, RngExt, SeedableRng};
 use rand_distr::{Distribution, Normal};
 
 /// Synthetic regression with a known sparse truth (demo data generated in the test).
@@ -102,5 +102,193 @@ fn bad_fold_counts_are_errors() {
             ..Default::default()
         };
         assert!(cross_validate(&loss, &Penalty::l1(1.0).unwrap(), &opts).is_err());
+    }
+}
+
+/// Synthetic ℓ1-logistic data with a known sparse truth (demo data generated in the test):
+/// standard normal features, intercept −0.5, five coefficients ±2.
+fn sparse_logistic(n: usize, p: usize, seed: u64) -> (Array2<f64>, Vec<f64>, Vec<usize>) {
+    let mut rng = StdRng::seed_from_u64(seed);
+    let normal = Normal::new(0.0, 1.0).unwrap();
+    let x = Array2::from_shape_fn((n, p), |_| normal.sample(&mut rng));
+    let support = vec![1, 4, 9, 15, 22];
+    let mut b = vec![0.0; p];
+    for (k, &j) in support.iter().enumerate() {
+        b[j] = if k % 2 == 0 { 2.0 } else { -2.0 };
+    }
+    let y = (0..n)
+        .map(|i| {
+            let eta = -0.5 + (0..p).map(|j| x[[i, j]] * b[j]).sum::<f64>();
+            let prob = 1.0 / (1.0 + (-eta).exp());
+            if rng.random::<f64>() < prob {
+                1.0
+            } else {
+                0.0
+            }
+        })
+        .collect();
+    (x, y, support)
+}
+
+/// ℓ1-logistic CV (deviance) with n = 400, p = 30: the model at the one-standard-error λ
+/// contains all five true features, and every true coefficient is larger in magnitude than
+/// every falsely selected one (the truth is exactly the top five: recovery after ranking).
+///
+/// Why this criterion: each true effect is large against its sampling noise (for |b_j| = 2
+/// on a standard normal feature the Wald statistic of the unpenalised fit is of order
+/// 2·√(n·E[p(1−p)]) ≈ 2·√(400·0.1) ≈ 13, a textbook large-sample approximation, "from
+/// memory"), so missing one, or ranking a null feature above one, would be a bug, not bad
+/// luck. A bound on the number of false positives is not a property of a prediction-chosen λ:
+/// shrinking large effects costs deviance, so CV prefers a small λ that admits noise
+/// variables with small coefficients ("Regression shrinkage and selection via the lasso",
+/// JRSS-B, 1996). A bound of five, set before the first run, failed with nine (all below 0.11
+/// in magnitude against true ones above 1.1), which is that known behaviour; so the check
+/// is containment plus separation, not a count.
+#[test]
+fn logistic_cv_recovers_sparse_support() {
+    let (x, y, support) = sparse_logistic(400, 30, 21);
+    let loss = Logistic::from_dense(x.view(), &y, true).unwrap();
+    let opts = CvOptions {
+        folds: 5,
+        seed: 4,
+        path: PathOptions {
+            n_lambdas: 40,
+            ..Default::default()
+        },
+        parallel: true,
+    };
+    let cv = cross_validate(&loss, &Penalty::l1(1.0).unwrap(), &opts).unwrap();
+    assert_eq!(cv.score_names, vec!["deviance", "misclassification"]);
+    assert!(cv.one_se <= cv.best);
+    let sol = ellone::Solver::solve(
+        &ellone::NewtonCd::default(),
+        &loss,
+        &Penalty::l1(cv.lambda_one_se()).unwrap(),
+    )
+    .unwrap();
+    let (b, _) = loss.split(&sol.x);
+    let found: Vec<usize> = (0..30).filter(|&j| b[j] != 0.0).collect();
+    for j in &support {
+        assert!(
+            found.contains(j),
+            "true feature {j} missed; found {found:?}"
+        );
+    }
+    let smallest_true = support
+        .iter()
+        .map(|&j| b[j].abs())
+        .fold(f64::INFINITY, f64::min);
+    let largest_false = (0..30)
+        .filter(|j| !support.contains(j))
+        .map(|j| b[j].abs())
+        .fold(0.0, f64::max);
+    assert!(
+        smallest_true > largest_false,
+        "true {smallest_true} vs false {largest_false}: {b:?}"
+    );
+    // The misclassification rate at the chosen λ beats the null model's (λ_max: predicts
+    // the majority class only).
+    let miss = &cv.scores[1];
+    let mean_at = |l: usize| miss.iter().map(|f| f[l]).sum::<f64>() / miss.len() as f64;
+    assert!(mean_at(cv.one_se) < mean_at(0));
+}
+
+/// The held-out score of a precision problem is the mean Gaussian negative log-likelihood:
+/// for Θ = diag(θ) and uncentred rows it is ½[p log 2π − Σ log θ_i + (1/m)Σ_r Σ_i θ_i z_ri²],
+/// the textbook density of independent normals, computed here directly.
+#[test]
+fn precision_held_out_score_is_the_gaussian_likelihood() {
+    use ellone::cv::CrossValidate;
+    use ellone::cv_precision::PrecisionProblem;
+    let mut rng = StdRng::seed_from_u64(5);
+    let normal = Normal::new(0.0, 1.0).unwrap();
+    let x = Array2::from_shape_fn((30, 4), |_| normal.sample(&mut rng));
+    let problem = PrecisionProblem::from_samples(x.view(), false, false).unwrap();
+    let theta = [0.5, 1.0, 2.0, 4.0];
+    let mut coords = vec![0.0; 10];
+    for (i, t) in theta.iter().enumerate() {
+        coords[problem.log_det().coordinate(i, i).unwrap()] = *t;
+    }
+    let rows = [2usize, 7, 11, 19, 25];
+    let mut direct = 0.0;
+    for &r in &rows {
+        let mut logpdf = 0.0;
+        for (i, &t) in theta.iter().enumerate() {
+            let var = 1.0 / t;
+            logpdf +=
+                -0.5 * (2.0 * std::f64::consts::PI * var).ln() - 0.5 * x[[r, i]].powi(2) / var;
+        }
+        direct -= logpdf;
+    }
+    direct /= rows.len() as f64;
+    let score = problem.held_out(&rows, &coords);
+    assert!(
+        (score[0] - direct).abs() < 1e-12 * direct.abs(),
+        "{score:?} vs {direct}"
+    );
+}
+
+/// Precision CV on samples from a sparse chain precision (demo data; p = 8, n = 300): every
+/// chain edge is present in the estimate at the minimum-score λ, and the chosen λ scores
+/// better than the diagonal model at λ_max.
+#[test]
+fn precision_cv_finds_the_chain() {
+    use ellone::cv_precision::PrecisionProblem;
+    let p = 8;
+    // Θ tridiagonal: 1 on the diagonal, 0.45 next to it (diagonally dominant, so positive
+    // definite). Sample z = L⁻ᵀ u with Θ = L Lᵀ, u standard normal: Cov z = Θ⁻¹.
+    let mut theta = Array2::<f64>::eye(p);
+    for i in 0..p - 1 {
+        theta[[i, i + 1]] = 0.45;
+        theta[[i + 1, i]] = 0.45;
+    }
+    let chol = ellone::linalg::cholesky(theta.view()).unwrap();
+    let l = chol.lower();
+    let mut rng = StdRng::seed_from_u64(8);
+    let normal = Normal::new(0.0, 1.0).unwrap();
+    let n = 300;
+    let mut x = Array2::<f64>::zeros((n, p));
+    for r in 0..n {
+        // Solve Lᵀ z = u by back substitution.
+        let u: Vec<f64> = (0..p).map(|_| normal.sample(&mut rng)).collect();
+        let mut z = vec![0.0; p];
+        for i in (0..p).rev() {
+            let s: f64 = (i + 1..p).map(|k| l[[k, i]] * z[k]).sum();
+            z[i] = (u[i] - s) / l[[i, i]];
+        }
+        for i in 0..p {
+            x[[r, i]] = z[i];
+        }
+    }
+    let problem = PrecisionProblem::from_samples(x.view(), true, false).unwrap();
+    let cv = cross_validate(
+        &problem,
+        &Penalty::l1(1.0).unwrap(),
+        &CvOptions {
+            folds: 5,
+            seed: 2,
+            path: PathOptions {
+                n_lambdas: 25,
+                ratio: Some(0.01),
+                ..Default::default()
+            },
+            parallel: true,
+        },
+    )
+    .unwrap();
+    assert_eq!(cv.score_names, vec!["negative_log_likelihood"]);
+    assert!(cv.mean[cv.best] < cv.mean[0]);
+    let fit = ellone::precision::estimate_precision(
+        ellone::precision::PrecisionInput::Data(x.view()),
+        cv.lambda_best(),
+        &Default::default(),
+    )
+    .unwrap();
+    for i in 0..p - 1 {
+        assert!(
+            fit.precision[[i, i + 1]] > 0.0,
+            "edge ({i}, {}) missed",
+            i + 1
+        );
     }
 }
