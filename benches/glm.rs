@@ -1,0 +1,307 @@
+//! Benchmark: Newton coordinate descent on the lasso and ℓ1-logistic regression at
+//! λ = 0.1·λ_max, dense (n = 2000, p = 1000) and sparse (n = 20 000, p = 50 000, 0.1 %
+//! density), each measured against one Xᵀv product on the same data.
+//!
+//! Reported per problem (printed before criterion's own timings):
+//! ratio = (time to the default tolerance) / (time of one Xᵀv), with targets ≤ 30 passes
+//! for least squares and ≤ 60 for logistic regression; the Newton iterations and inner
+//! sweeps; and a pass count estimated from the trace (one full gradient pass per outer
+//! iteration plus two column operations per free coordinate per sweep, the free set
+//! approximated from below by the non-zeros).
+//!
+//! The data are synthetic (demo data): Gaussian (dense) or uniform (sparse) entries, a
+//! sparse true coefficient vector, Gaussian noise or Bernoulli labels.
+
+use criterion::{criterion_group, Criterion};
+use ellone::solver::{NewtonCd, Solver, SolverOptions};
+use ellone::{Design, LeastSquares, Logistic, Loss, Penalty, Solution};
+use rand::{rngs::StdRng, RngExt, SeedableRng};
+use rand_distr::StandardNormal;
+use sprs::TriMat;
+use std::hint::black_box;
+use std::sync::OnceLock;
+use std::time::Instant;
+
+/// One benchmark problem: the design, the Gaussian response and the labels from the same
+/// linear predictor.
+struct Data {
+    name: &'static str,
+    design: Design,
+    y: Vec<f64>,
+    labels: Vec<f64>,
+}
+
+fn finish(name: &'static str, design: Design, beta: &[f64], rng: &mut StdRng) -> Data {
+    let n = design.nrows();
+    let mut eta = vec![0.0; n];
+    design.matvec(beta, &mut eta);
+    let y = eta
+        .iter()
+        .map(|e| e + 0.5 * rng.sample::<f64, _>(StandardNormal))
+        .collect();
+    let labels = eta
+        .iter()
+        .map(|e| f64::from(rng.random::<f64>() < 1.0 / (1.0 + (-e).exp())))
+        .collect();
+    Data {
+        name,
+        design,
+        y,
+        labels,
+    }
+}
+
+/// A sparse true coefficient vector: `k` non-zeros of size 0.5–1.5 with alternating signs,
+/// spread over the p coordinates.
+fn sparse_beta(p: usize, k: usize, scale: f64, rng: &mut StdRng) -> Vec<f64> {
+    let mut b = vec![0.0; p];
+    for i in 0..k {
+        let size = scale * (0.5 + rng.random::<f64>());
+        b[(i * 7919) % p] = if i % 2 == 0 { size } else { -size };
+    }
+    b
+}
+
+fn dense_data() -> Data {
+    let (n, p) = (2000, 1000);
+    let mut rng = StdRng::seed_from_u64(1);
+    let x = ndarray::Array2::from_shape_fn((n, p), |_| rng.sample::<f64, _>(StandardNormal));
+    let design = Design::dense(x.view()).unwrap();
+    let beta = sparse_beta(p, 20, 0.5, &mut rng);
+    finish("dense 2000x1000", design, &beta, &mut rng)
+}
+
+fn sparse_data() -> Data {
+    let (n, p, per_col) = (20_000, 50_000, 20); // 0.1 % density
+    let mut rng = StdRng::seed_from_u64(2);
+    let mut tri = TriMat::with_capacity((n, p), p * per_col);
+    for j in 0..p {
+        for _ in 0..per_col {
+            tri.add_triplet(rng.random_range(0..n), j, 2.0 * rng.random::<f64>() - 1.0);
+        }
+    }
+    let design = Design::sparse(tri.to_csc()).unwrap();
+    let beta = sparse_beta(p, 500, 2.0, &mut rng);
+    finish("sparse 20000x50000 (0.1%)", design, &beta, &mut rng)
+}
+
+fn problems() -> &'static [Data; 2] {
+    static DATA: OnceLock<[Data; 2]> = OnceLock::new();
+    DATA.get_or_init(|| [dense_data(), sparse_data()])
+}
+
+/// λ_max = max_j |x_jᵀ(y − ȳ)|/n (with an intercept; the same formula for both losses).
+fn lambda_max(design: &Design, y: &[f64]) -> f64 {
+    let n = y.len() as f64;
+    let ybar = y.iter().sum::<f64>() / n;
+    let c: Vec<f64> = y.iter().map(|v| v - ybar).collect();
+    let mut out = vec![0.0; design.ncols()];
+    design.tmatvec(&c, &mut out);
+    out.iter().fold(0.0f64, |a, v| a.max(v.abs())) / n
+}
+
+/// Seconds for one Xᵀv with the library kernel (best of `reps`, to filter out noise from
+/// other processes on the machine).
+fn xtv_seconds(design: &Design, v: &[f64], reps: usize) -> f64 {
+    let mut out = vec![0.0; design.ncols()];
+    (0..reps)
+        .map(|_| {
+            let t = Instant::now();
+            design.tmatvec(black_box(v), &mut out);
+            black_box(&out);
+            t.elapsed().as_secs_f64()
+        })
+        .fold(f64::INFINITY, f64::min)
+}
+
+/// Seconds for one Xᵀv computed column by column on one thread (the inner loop's kernel).
+fn xtv_serial_seconds(design: &Design, v: &[f64], reps: usize) -> f64 {
+    (0..reps)
+        .map(|_| {
+            let t = Instant::now();
+            let s: f64 = (0..design.ncols()).map(|j| design.col_dot(j, v)).sum();
+            black_box(s);
+            t.elapsed().as_secs_f64()
+        })
+        .fold(f64::INFINITY, f64::min)
+}
+
+fn solver(trace: bool) -> NewtonCd {
+    NewtonCd::new(SolverOptions {
+        trace,
+        ..Default::default()
+    })
+}
+
+/// Estimated passes over the data from the trace: per outer iteration one gradient pass
+/// plus 2·(sweeps)·nnz/p for the inner loop (nnz ≤ free-set size, so a lower bound).
+fn estimated_passes(sol: &Solution, p: usize) -> f64 {
+    let mut passes = 0.0;
+    for w in sol.trace.windows(2) {
+        let sweeps = (w[1].inner - w[0].inner) as f64;
+        passes += 1.0 + 2.0 * sweeps * w[0].nnz.max(w[1].nnz) as f64 / p as f64;
+    }
+    passes + 1.0
+}
+
+fn report_one(data: &Data, loss: &dyn Loss, kind: &str, target: f64, lambda: f64) {
+    let pen = Penalty::l1(lambda).unwrap();
+    let v: Vec<f64> = (0..data.design.nrows())
+        .map(|i| ((i * 37) % 101) as f64 / 101.0 - 0.5)
+        .collect();
+    let pass_before = xtv_seconds(&data.design, &v, 20);
+    let serial = xtv_serial_seconds(&data.design, &v, 10);
+    let mut times = Vec::new();
+    let mut sol = None;
+    for _ in 0..3 {
+        let t = Instant::now();
+        let s = solver(false).solve(loss, &pen).unwrap();
+        times.push(t.elapsed().as_secs_f64());
+        sol = Some(s);
+    }
+    let sol = sol.unwrap();
+    let pass = pass_before.min(xtv_seconds(&data.design, &v, 20));
+    let best = times.iter().copied().fold(f64::INFINITY, f64::min);
+    let traced = solver(true).solve(loss, &pen).unwrap();
+    let p = data.design.ncols();
+    println!(
+        "{kind:>13} | {:<26} | solve {:>8.2} ms | Xᵀv {:>7.3} ms (serial {:>7.3} ms) | \
+         ratio {:>6.1} (target ≤ {target}) {} | vs serial {:>6.1} | status {:?}, \
+         {} Newton iterations, {} inner sweeps, nnz {}, est. passes {:.1}",
+        data.name,
+        best * 1e3,
+        pass * 1e3,
+        serial * 1e3,
+        best / pass,
+        if best / pass <= target {
+            "MET"
+        } else {
+            "MISSED"
+        },
+        best / serial,
+        sol.status,
+        sol.iterations,
+        sol.inner,
+        sol.nnz(),
+        estimated_passes(&traced, p),
+    );
+    for r in &traced.trace {
+        println!(
+            "{:>15} iteration {:>2}: t {:>8.2} ms, F {:.10}, KKT {:.2e}, nnz {:>5}, sweeps so far {}",
+            "",
+            r.iteration,
+            r.seconds * 1e3,
+            r.objective,
+            r.kkt_residual,
+            r.nnz,
+            r.inner
+        );
+    }
+}
+
+/// The ratio report (printed once, before criterion's timings).
+fn report() {
+    println!("\nNewton-CD at λ = 0.1·λ_max, default tolerance; ratio = solve time / one Xᵀv");
+    for data in problems() {
+        let ls = LeastSquares::new(data.design.clone(), data.y.clone(), true).unwrap();
+        let lg = Logistic::new(data.design.clone(), data.labels.clone(), true).unwrap();
+        let lam_ls = 0.1 * lambda_max(&data.design, &data.y);
+        let lam_lg = 0.1 * lambda_max(&data.design, &data.labels);
+        report_one(data, &ls, "least squares", 30.0, lam_ls);
+        report_one(data, &lg, "logistic", 60.0, lam_lg);
+    }
+    println!();
+}
+
+fn bench(c: &mut Criterion) {
+    for data in problems() {
+        let ls = LeastSquares::new(data.design.clone(), data.y.clone(), true).unwrap();
+        let lg = Logistic::new(data.design.clone(), data.labels.clone(), true).unwrap();
+        let pen_ls = Penalty::l1(0.1 * lambda_max(&data.design, &data.y)).unwrap();
+        let pen_lg = Penalty::l1(0.1 * lambda_max(&data.design, &data.labels)).unwrap();
+        let mut group = c.benchmark_group(format!("glm {}", data.name));
+        group.sample_size(10);
+        let v = data.y.clone();
+        let mut out = vec![0.0; data.design.ncols()];
+        group.bench_function("one Xᵀv", |b| {
+            b.iter(|| data.design.tmatvec(black_box(&v), &mut out))
+        });
+        group.bench_function("lasso 0.1·λmax", |b| {
+            b.iter(|| solver(false).solve(&ls, &pen_ls).unwrap())
+        });
+        group.bench_function("logistic 0.1·λmax", |b| {
+            b.iter(|| solver(false).solve(&lg, &pen_lg).unwrap())
+        });
+        group.finish();
+    }
+}
+
+criterion_group!(benches, bench);
+
+fn main() {
+    if std::env::var_os("ELLONE_GLM_PROFILE").is_some() {
+        profile();
+        return;
+    }
+    report();
+    benches();
+    Criterion::default().configure_from_args().final_summary();
+}
+
+/// ELLONE_GLM_PROFILE=1: free-set sizes and sweeps per outer iteration of the sparse
+/// logistic problem (rerunning with max_iter = 0, 1, 2, ...).
+fn profile() {
+    let data = &problems()[1];
+    let lg = Logistic::new(data.design.clone(), data.labels.clone(), true).unwrap();
+    let pen = Penalty::l1(0.1 * lambda_max(&data.design, &data.labels)).unwrap();
+    let lam = pen.lambda();
+    let m = lg.dim();
+    let mut prev_inner = 0;
+    for it in 0..7 {
+        let mut s = solver(false);
+        s.options.max_iter = it;
+        let sol = s.solve(&lg, &pen).unwrap();
+        let mut g = vec![0.0; m];
+        lg.gradient(&sol.x, &mut g);
+        let free = (0..m)
+            .filter(|&k| sol.x[k] != 0.0 || k == m - 1 || g[k].abs() >= lam)
+            .count();
+        let t = Instant::now();
+        let mut model = lg.local_model(&sol.x).unwrap();
+        let tm = t.elapsed().as_secs_f64();
+        let t = Instant::now();
+        let mut acc = 0.0;
+        for k in 0..m {
+            if sol.x[k] != 0.0 || g[k].abs() >= lam {
+                acc += model.curvature(k);
+            }
+        }
+        let tc = t.elapsed().as_secs_f64();
+        let t = Instant::now();
+        for k in 0..m {
+            if sol.x[k] != 0.0 || g[k].abs() >= lam {
+                acc += model.hd(k);
+                model.step(k, 1e-12);
+            }
+        }
+        let ts = t.elapsed().as_secs_f64();
+        black_box(acc);
+        println!(
+            "after {it} iterations ({:?}): nnz {}, free set {free}, sweeps in previous iteration {}, KKT {:.2e}; \
+             model {:.2} ms, first curvature {:.2} ms, one sweep (hd+step) {:.2} ms",
+            sol.status,
+            sol.nnz(),
+            sol.inner - prev_inner,
+            sol.kkt_residual,
+            tm * 1e3,
+            tc * 1e3,
+            ts * 1e3
+        );
+        prev_inner = sol.inner;
+        if sol.converged() {
+            break;
+        }
+    }
+    let v = data.y.clone();
+    println!("one Xᵀv {:.3} ms", xtv_seconds(&data.design, &v, 20) * 1e3);
+}
