@@ -560,11 +560,18 @@ pub fn estimate_precision(
     let mut gap = Some(0.0);
     let mut status = Status::Converged;
     let (mut iterations, mut inner) = (0, 0);
-    for f in &fits {
-        for (a, &i) in f.idx.iter().enumerate() {
-            for (c, &j) in f.idx.iter().enumerate() {
-                theta[[i, j]] = f.theta[[a, c]];
-                cov[[i, j]] = f.w[[a, c]];
+    for f in &mut fits {
+        if f.idx.len() == p {
+            // One block holding every variable in order: no copy.
+            std::mem::swap(&mut theta, &mut f.theta);
+            std::mem::swap(&mut cov, &mut f.w);
+        } else {
+            for (a, &i) in f.idx.iter().enumerate() {
+                let (mut trow, mut crow) = (theta.row_mut(i), cov.row_mut(i));
+                for (c, &j) in f.idx.iter().enumerate() {
+                    trow[j] = f.theta[[a, c]];
+                    crow[j] = f.w[[a, c]];
+                }
             }
         }
         objective += f.objective;
@@ -580,10 +587,14 @@ pub fn estimate_precision(
     }
     // KKT residual over every entry, on the solved scale.
     let mut kkt = 0.0f64;
-    for i in 0..p {
-        for j in 0..p {
-            let r =
-                coordinate_residual(theta[[i, j]], s[[i, j]] - cov[[i, j]], problem.level(i, j));
+    for (i, (trow, (srow, crow))) in theta
+        .rows()
+        .into_iter()
+        .zip(s.rows().into_iter().zip(cov.rows()))
+        .enumerate()
+    {
+        for (j, (t, (sv, c))) in trow.iter().zip(srow.iter().zip(crow.iter())).enumerate() {
+            let r = coordinate_residual(*t, sv - c, problem.level(i, j));
             if r > kkt || r.is_nan() {
                 kkt = r;
             }
