@@ -13,8 +13,7 @@
 //! file; `output` writes JSON to stdout or `--out FILE` and refuses non-finite numbers;
 //! `solvers` maps `--solver NAME` to a library solver (new solvers add one variant there);
 //! `error` is the error type every `run` returns. Subcommands: `solve` (one problem),
-//! `race` (solvers side by side); planned: `path` and `cv` (regularisation paths,
-//! cross-validation).
+//! `race` (solvers side by side), `path` and `cv` (regularisation paths, cross-validation).
 //!
 //! Exit codes: 0 success, 1 a failure while running (bad file, bad value, I/O), 2 a
 //! command-line usage error. Nothing here panics on bad input; every failure becomes a
