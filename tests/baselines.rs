@@ -131,7 +131,13 @@ fn random_least_squares_all_solvers() {
             .collect();
         let loss = LeastSquares::from_dense(x.view(), &y, true).unwrap();
         let pen = Penalty::l1(0.02).unwrap().with_l2(l2).unwrap();
-        let sols: Vec<Solution> = baselines()
+        // ADMM once more with its inner Newton x-update instead of the closed form (the
+        // path large sparse designs take).
+        let mut newton_admm = Admm::new(opts(50_000));
+        newton_admm.admm.closed_form = false;
+        let mut solvers = baselines();
+        solvers.push(Box::new(newton_admm));
+        let sols: Vec<Solution> = solvers
             .iter()
             .map(|s| s.solve(&loss, &pen).unwrap())
             .collect();

@@ -20,7 +20,9 @@
 //! * Least squares ([`LossStructure::LeastSquares`], A = [X 1]): the normal equations
 //!   (AᵀA/n + ρI)x = Aᵀy/n + ρv. One symmetric eigen-decomposition is computed once and
 //!   serves every ρ: of AᵀA/n (m × m) when m ≤ n, else of AAᵀ/n (n × n) with
-//!   (ρI + AᵀA/n)⁻¹ = (1/ρ)(I − Aᵀ(nρI + AAᵀ)⁻¹A).
+//!   (ρI + AᵀA/n)⁻¹ = (1/ρ)(I − Aᵀ(nρI + AAᵀ)⁻¹A). It needs a dense copy of A, so it is
+//!   used up to n·m = 5·10⁷ entries and min(n, m) = 4000; beyond that (large sparse
+//!   designs) the inner Newton solve below takes over.
 //! * Precision ([`LossStructure::Precision`]): −log det Θ + tr(SΘ) + (ρ/2)‖Θ − V‖²_F is
 //!   minimised where ρΘ − Θ⁻¹ = ρV − S; with ρV − S = Q diag(e) Qᵀ the solution is
 //!   Θ = Q diag(θ) Qᵀ, θ_i = (e_i + √(e_i² + 4ρ))/(2ρ) (always positive definite).
@@ -116,6 +118,11 @@ impl Admm {
     }
 }
 
+/// Largest dense copy of the design the closed-form least-squares x-update makes.
+const MAX_DENSE_ENTRIES: usize = 50_000_000;
+/// Largest Gram matrix it eigen-decomposes.
+const MAX_GRAM_DIM: usize = 4_000;
+
 /// Closed-form least-squares x-update through one cached eigen-decomposition.
 struct GramSolver {
     /// A = [X 1] (n × m), dense.
@@ -130,6 +137,14 @@ struct GramSolver {
 }
 
 impl GramSolver {
+    /// Whether the dense copy of A (n·m entries) and the eigen-decomposition of the smaller
+    /// Gram matrix (min(n, m)² entries, O(min(n, m)³) work) stay within about 400 MB and a
+    /// few seconds; larger problems use the inner Newton solve instead.
+    fn fits(design: &crate::Design) -> bool {
+        let (n, m) = (design.nrows(), design.ncols() + 1);
+        n.saturating_mul(m) <= MAX_DENSE_ENTRIES && n.min(m) <= MAX_GRAM_DIM
+    }
+
     fn new(design: &crate::Design, y: &[f64], intercept: bool) -> Result<Self> {
         let (n, p) = (design.nrows(), design.ncols());
         let m = p + usize::from(intercept);
@@ -357,7 +372,7 @@ impl Solver for Admm {
                 design,
                 y,
                 intercept,
-            }) => XUpdate::Gram(GramSolver::new(design, y, intercept)?),
+            }) if GramSolver::fits(design) => XUpdate::Gram(GramSolver::new(design, y, intercept)?),
             Some(LossStructure::Precision { s, pairs }) if pairs.len() == m => {
                 for (k, &(i, j)) in pairs.iter().enumerate() {
                     metric[k] = if i == j { 1.0 } else { 2.0 };
