@@ -105,6 +105,7 @@
 
 pub mod crf;
 pub mod cv;
+pub mod cv_crf;
 pub mod cv_precision;
 pub mod design;
 pub mod error;

@@ -3,6 +3,7 @@
 mod common;
 
 use common::*;
+use ellone::cv_crf::CrfProblem;
 use ellone::cv_precision::PrecisionProblem;
 use ellone::path::{fit_path, lambda_max, PathOptions};
 use ellone::solver::{NewtonCd, Solver, SolverOptions};
@@ -171,4 +172,21 @@ fn precision_path_matches_reference_objectives() {
         }
     }
     assert!(mask.iter().any(|&z| z));
+}
+
+/// Macrodata (tests/data) as a Gaussian CRF: outputs unemp and infl given the other ten
+/// series (centred and standardised), λ_Θ = λ_Λ along the path. KKT over all coordinates
+/// and equal to cold starts.
+#[test]
+fn crf_path_is_exact() {
+    let (names, data) = read_numeric_table("macrodata.csv");
+    let outputs: Vec<usize> = ["unemp", "infl"]
+        .iter()
+        .map(|o| names.iter().position(|n| n == o).unwrap())
+        .collect();
+    let inputs: Vec<usize> = (0..names.len()).filter(|j| !outputs.contains(j)).collect();
+    let x = data.select(ndarray::Axis(1), &inputs);
+    let y = data.select(ndarray::Axis(1), &outputs);
+    let loss = CrfProblem::new(x.view(), y.view(), true, true, 1.0).unwrap();
+    check_path(&loss, (203, 10), 20);
 }
