@@ -358,3 +358,98 @@ fn bad_options_are_errors() {
         assert!(out.stdout.is_empty());
     }
 }
+
+/// Gaussian CRF of macrodata's unemp and infl given the other ten series (centred): every
+/// point within the KKT tolerance, the first point zero in Θ and in Λ's off-diagonal (only
+/// the diagonal of Λ, unpenalised, is non-zero), and each reported entry names its matrix
+/// coordinate consistently with the loss's layout.
+#[test]
+fn crf_path_and_cv() {
+    let (names, data) = read_numeric_table("macrodata.csv");
+    let outputs: Vec<usize> = ["unemp", "infl"]
+        .iter()
+        .map(|o| names.iter().position(|n| n == o).unwrap())
+        .collect();
+    let inputs: Vec<usize> = (0..names.len()).filter(|j| !outputs.contains(j)).collect();
+    // Standardise (sd dividing by n) so the series' very different units do not dominate.
+    let mut z = data.clone();
+    let n = data.nrows();
+    for j in 0..data.ncols() {
+        let mean = data.column(j).sum() / n as f64;
+        let sd = (data
+            .column(j)
+            .iter()
+            .map(|v| (v - mean).powi(2))
+            .sum::<f64>()
+            / n as f64)
+            .sqrt();
+        z.column_mut(j).mapv_inplace(|v| (v - mean) / sd);
+    }
+    let x = TempFile::with_text("crf-x.csv", &csv_text(&z.select(ndarray::Axis(1), &inputs)));
+    let y = TempFile::with_text(
+        "crf-y.csv",
+        &csv_text(&z.select(ndarray::Axis(1), &outputs)),
+    );
+    let svg = TempFile::new("crf.svg");
+    let doc = run_json(&[
+        "path",
+        "--loss",
+        "gaussian-crf",
+        "--x",
+        x.arg(),
+        "--y",
+        y.arg(),
+        "--theta-ratio",
+        "0.5",
+        "--n-lambdas",
+        "15",
+        "--plot",
+        svg.arg(),
+    ]);
+    let points = doc["points"].as_array().unwrap();
+    let tol = num(&doc, "kkt_tolerance");
+    let (q, nl) = (2usize, 3usize);
+    for (t, p) in points.iter().enumerate() {
+        assert!(num(p, "kkt_residual") <= tol, "{p}");
+        let c = &p["coefficients"];
+        let idx = c["indices"].as_array().unwrap();
+        for (e, k) in idx.iter().enumerate() {
+            let k = k.as_u64().unwrap() as usize;
+            let (i, j) = (
+                c["rows"][e].as_u64().unwrap() as usize,
+                c["cols"][e].as_u64().unwrap() as usize,
+            );
+            match c["block"][e].as_str().unwrap() {
+                "precision" => {
+                    assert_eq!(k, ellone::crf::loss::tri_index(q, i, j));
+                    if t == 0 {
+                        assert_eq!(i, j, "off-diagonal Λ at λ_max");
+                    }
+                }
+                "interaction" => {
+                    assert_eq!(k, nl + i * q + j);
+                    assert!(t > 0, "Θ non-zero at λ_max");
+                }
+                other => panic!("unknown block {other}"),
+            }
+        }
+    }
+    let plot = std::fs::read_to_string(svg.path()).unwrap();
+    // Axis labels always; legend names only up to 12 lines (this path may have more).
+    assert!(plot.contains("coefficient") && plot.contains("log10 λ"));
+    let cv = run_json(&[
+        "cv",
+        "--loss",
+        "gaussian-crf",
+        "--x",
+        x.arg(),
+        "--y",
+        y.arg(),
+        "--n-lambdas",
+        "15",
+        "--folds",
+        "4",
+    ]);
+    assert_eq!(cv["score"], "negative_log_likelihood");
+    assert!(num(&cv, "lambda_one_se") >= num(&cv, "lambda_best"));
+}

@@ -5,7 +5,8 @@
 //! The problems are those of `ellone solve` (the crate's objectives, on the data as given):
 //! least squares and logistic from `--x`/`--y` (optional unpenalised intercept), and
 //! precision from samples `--x` (S = X̃ᵀX̃/n, X̃ centred only with `--center`; the diagonal
-//! is unpenalised).
+//! is unpenalised), and the Gaussian CRF of outputs `--y` (n × q) given inputs `--x`
+//! (centred only with `--center`) with λ on the off-diagonal of Λ and `--theta-ratio`·λ on Θ.
 //!
 //! The grid is `--n-lambdas` values log-spaced from λ_max (the smallest λ whose solution is
 //! zero in every penalised coordinate) down to `--ratio`·λ_max (default 1e-4 when n > p,
@@ -17,13 +18,16 @@
 //! `status`, `screened`, `violations` (screened coordinates re-added by the KKT check),
 //! `intercept` (least squares and logistic, 0 without `--intercept`) and `coefficients`: the
 //! non-zeros as `indices` (0-based: the column of --x; for precision the coordinate of the
-//! upper triangle, with its `rows` and `cols`, i ≤ j) and `values`). CSV: a header and one
+//! upper triangle, with its `rows` and `cols`, i ≤ j; for gaussian-crf the coordinate of
+//! [upper triangle of Λ row by row, Θ row-major] with its `block` ("precision" or
+//! "interaction"), `rows` and `cols`) and `values`). CSV: a header and one
 //! row per λ with the scalar fields (coefficients are in the JSON).
 
 use crate::input::{self, option_file};
 use crate::output::{self, finite, finite_vec};
 use crate::{CliError, CliResult};
 use ellone::cv::CrossValidate;
+use ellone::cv_crf::CrfProblem;
 use ellone::cv_precision::PrecisionProblem;
 use ellone::path::{fit_path, PathOptions, PathPoint, RegPath};
 use ellone::plot::{plot_path, PathPlotOptions};
@@ -42,6 +46,8 @@ pub enum PathLoss {
     Logistic,
     /// Sparse precision (inverse covariance) matrix of the samples in --x.
     Precision,
+    /// Sparse Gaussian conditional random field of outputs --y (matrix) given inputs --x.
+    GaussianCrf,
 }
 
 impl PathLoss {
@@ -51,6 +57,7 @@ impl PathLoss {
             PathLoss::LeastSquares => "least-squares",
             PathLoss::Logistic => "logistic",
             PathLoss::Precision => "precision",
+            PathLoss::GaussianCrf => "gaussian-crf",
         }
     }
 }
@@ -65,15 +72,19 @@ pub struct ProblemArgs {
     /// precision the samples (one row each).
     #[arg(long, value_name = "FILE")]
     pub x: PathBuf,
-    /// Responses, one value per line (labels 0/1 for logistic); not for precision.
+    /// Responses, one value per line (labels 0/1 for logistic); for gaussian-crf a matrix
+    /// of outputs (n rows × q columns); not for precision.
     #[arg(long, value_name = "FILE")]
     pub y: Option<PathBuf>,
     /// Fit an unpenalised intercept b0 (least squares and logistic).
     #[arg(long)]
     pub intercept: bool,
-    /// precision only: subtract the column means of --x before forming S.
+    /// precision and gaussian-crf: subtract the column means of the data first.
     #[arg(long)]
     pub center: bool,
+    /// gaussian-crf only: λ_Θ = RHO·λ along the path (λ is the level on Λ's off-diagonal).
+    #[arg(long, value_name = "RHO", allow_negative_numbers = true)]
+    pub theta_ratio: Option<f64>,
     /// Number of λ values of the generated grid.
     #[arg(long, value_name = "N", default_value_t = 100)]
     pub n_lambdas: usize,
@@ -125,6 +136,8 @@ pub enum Problem {
     Logistic(Logistic),
     /// Sparse precision.
     Precision(PrecisionProblem),
+    /// Sparse Gaussian CRF.
+    Crf(CrfProblem),
 }
 
 impl Problem {
@@ -134,6 +147,7 @@ impl Problem {
             Problem::LeastSquares(l) => l,
             Problem::Logistic(l) => l,
             Problem::Precision(l) => l,
+            Problem::Crf(l) => l,
         }
     }
 
@@ -143,6 +157,7 @@ impl Problem {
             Problem::LeastSquares(l) => l,
             Problem::Logistic(l) => l,
             Problem::Precision(l) => l,
+            Problem::Crf(l) => l,
         }
     }
 
@@ -161,6 +176,7 @@ impl Problem {
     fn plotted(&self, k: usize) -> bool {
         match self {
             Problem::Precision(l) => l.penalty_factor(k) != 0.0,
+            Problem::Crf(l) => l.penalty_factor(k) != 0.0,
             _ => k < self.features(),
         }
     }
@@ -174,6 +190,9 @@ impl Problem {
                     Ok((i, j)) => format!("Θ({},{})", i + 1, j + 1),
                     Err(_) => format!("x[{k}]"),
                 },
+                Problem::Crf(l) => crf_entry(l, k).map_or(format!("x[{k}]"), |(b, i, j)| {
+                    format!("{b}({},{})", i + 1, j + 1)
+                }),
                 _ if k < self.features() => format!("b{}", k + 1),
                 _ => "intercept".into(),
             })
@@ -185,6 +204,11 @@ impl Problem {
 pub fn load(args: &ProblemArgs) -> CliResult<Problem> {
     let loss = args.loss.name();
     let x_path = args.x.as_path();
+    if args.theta_ratio.is_some() && args.loss != PathLoss::GaussianCrf {
+        return Err(CliError::new(format!(
+            "--theta-ratio does not apply to --loss {loss}"
+        )));
+    }
     match args.loss {
         PathLoss::LeastSquares | PathLoss::Logistic => {
             if args.center {
@@ -224,6 +248,59 @@ pub fn load(args: &ProblemArgs) -> CliResult<Problem> {
                     .map_err(|e| CliError::from(e).context(option_file("x", x_path)))?,
             ))
         }
+        PathLoss::GaussianCrf => {
+            if args.intercept {
+                return Err(CliError::new(
+                    "--intercept does not apply to --loss gaussian-crf",
+                ));
+            }
+            let y_path = args
+                .y
+                .as_deref()
+                .ok_or_else(|| CliError::new("--loss gaussian-crf needs --y FILE"))?;
+            let x = input::dense_matrix(x_path)?;
+            let y = input::dense_matrix(y_path)?;
+            if x.nrows() != y.nrows() {
+                return Err(CliError::new(format!(
+                    "--x {} has {} rows but --y {} has {}",
+                    x_path.display(),
+                    x.nrows(),
+                    y_path.display(),
+                    y.nrows()
+                )));
+            }
+            let ratio = args.theta_ratio.unwrap_or(1.0);
+            Ok(Problem::Crf(
+                CrfProblem::new(x.view(), y.view(), args.center, false, ratio).map_err(
+                    |e| match e {
+                        ellone::Error::InvalidLambda { .. } => {
+                            CliError::from(e).context("--theta-ratio")
+                        }
+                        other => CliError::from(other).context(option_file("y", y_path)),
+                    },
+                )?,
+            ))
+        }
+    }
+}
+
+/// For coordinate k of a CRF: ("Λ", i, j) with i ≤ j in the upper triangle of Λ, or
+/// ("Θ", i, j) for input i and output j.
+fn crf_entry(l: &CrfProblem, k: usize) -> Option<(&'static str, usize, usize)> {
+    let loss = l.crf_loss();
+    let nl = loss.precision_coordinates();
+    let q = loss.data().outputs();
+    if k < nl {
+        // Row-by-row upper triangle: row i holds q − i entries.
+        let (mut i, mut start) = (0, 0);
+        while i < q && k >= start + (q - i) {
+            start += q - i;
+            i += 1;
+        }
+        (i < q).then_some(("Λ", i, i + (k - start)))
+    } else {
+        let t = k - nl;
+        (t < loss.data().inputs() * q).then_some(("Θ", t / q, t % q))
     }
 }
 
@@ -294,6 +371,8 @@ pub fn write_text(option: &str, path: &Path, text: &str) -> CliResult<()> {
 struct SparseOut {
     indices: Vec<usize>,
     #[serde(skip_serializing_if = "Option::is_none")]
+    block: Option<Vec<&'static str>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
     rows: Option<Vec<usize>>,
     #[serde(skip_serializing_if = "Option::is_none")]
     cols: Option<Vec<usize>>,
@@ -332,7 +411,7 @@ struct Report {
 fn point_out(problem: &Problem, p: &PathPoint) -> CliResult<PointOut> {
     let features = problem.features();
     let (intercept, keep): (Option<f64>, Vec<usize>) = match problem {
-        Problem::Precision(_) => (None, (0..p.x.indices.len()).collect()),
+        Problem::Precision(_) | Problem::Crf(_) => (None, (0..p.x.indices.len()).collect()),
         _ => {
             let b0 =
                 p.x.indices
@@ -347,6 +426,7 @@ fn point_out(problem: &Problem, p: &PathPoint) -> CliResult<PointOut> {
     };
     let indices: Vec<usize> = keep.iter().map(|&t| p.x.indices[t]).collect();
     let values: Vec<f64> = keep.iter().map(|&t| p.x.values[t]).collect();
+    let mut block = None;
     let (rows, cols) = match problem {
         Problem::Precision(l) => {
             let mut rows = Vec::with_capacity(indices.len());
@@ -356,6 +436,24 @@ fn point_out(problem: &Problem, p: &PathPoint) -> CliResult<PointOut> {
                 rows.push(i);
                 cols.push(j);
             }
+            (Some(rows), Some(cols))
+        }
+        Problem::Crf(l) => {
+            let mut rows = Vec::with_capacity(indices.len());
+            let mut cols = Vec::with_capacity(indices.len());
+            let mut blocks = Vec::with_capacity(indices.len());
+            for &k in &indices {
+                let (b, i, j) = crf_entry(l, k)
+                    .ok_or_else(|| CliError::new(format!("coordinate {k} out of range")))?;
+                blocks.push(if b == "Λ" {
+                    "precision"
+                } else {
+                    "interaction"
+                });
+                rows.push(i);
+                cols.push(j);
+            }
+            block = Some(blocks);
             (Some(rows), Some(cols))
         }
         _ => (None, None),
@@ -373,6 +471,7 @@ fn point_out(problem: &Problem, p: &PathPoint) -> CliResult<PointOut> {
         intercept,
         coefficients: SparseOut {
             indices,
+            block,
             rows,
             cols,
             values: finite_vec("coefficient", &values)?,
