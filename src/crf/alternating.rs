@@ -11,7 +11,7 @@
 //!   quadratic model over the free set of the upper triangle (Hessian ΣEΣ + ΣEΦ + ΦEΣ),
 //!   then an Armijo line search that rejects matrices that are not positive definite.
 //!
-//! Both steps use [`super::local`]'s model; the Λ-step's model skips the O(n·p·q) product,
+//! Both steps use the CRF's fast local model; the Λ-step's model skips the O(n·p·q) product,
 //! so an outer iteration costs about what one joint Newton iteration costs. Reference:
 //! "Large-scale optimization algorithms for sparse conditional Gaussian graphical models",
 //! AISTATS, 2016 (the alternating Newton coordinate-descent scheme).
