@@ -113,10 +113,10 @@ pub mod io;
 pub mod linalg;
 pub mod loss;
 pub mod path;
-pub mod precision;
+pub mod penalty;
 #[cfg(feature = "cli")]
 pub mod plot;
-pub mod penalty;
+pub mod precision;
 pub mod race;
 #[cfg(feature = "cli")]
 pub mod race_plot;
