@@ -136,8 +136,8 @@ pub enum Problem {
     Logistic(Logistic),
     /// Sparse precision.
     Precision(PrecisionProblem),
-    /// Sparse Gaussian CRF.
-    Crf(CrfProblem),
+    /// Sparse Gaussian CRF (boxed: it holds the raw data and is much larger).
+    Crf(Box<CrfProblem>),
 }
 
 impl Problem {
@@ -147,7 +147,7 @@ impl Problem {
             Problem::LeastSquares(l) => l,
             Problem::Logistic(l) => l,
             Problem::Precision(l) => l,
-            Problem::Crf(l) => l,
+            Problem::Crf(l) => l.as_ref(),
         }
     }
 
@@ -157,7 +157,7 @@ impl Problem {
             Problem::LeastSquares(l) => l,
             Problem::Logistic(l) => l,
             Problem::Precision(l) => l,
-            Problem::Crf(l) => l,
+            Problem::Crf(l) => l.as_ref(),
         }
     }
 
@@ -270,7 +270,7 @@ pub fn load(args: &ProblemArgs) -> CliResult<Problem> {
                 )));
             }
             let ratio = args.theta_ratio.unwrap_or(1.0);
-            Ok(Problem::Crf(
+            Ok(Problem::Crf(Box::new(
                 CrfProblem::new(x.view(), y.view(), args.center, false, ratio).map_err(
                     |e| match e {
                         ellone::Error::InvalidLambda { .. } => {
@@ -279,7 +279,7 @@ pub fn load(args: &ProblemArgs) -> CliResult<Problem> {
                         other => CliError::from(other).context(option_file("y", y_path)),
                     },
                 )?,
-            ))
+            )))
         }
     }
 }
