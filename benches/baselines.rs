@@ -12,18 +12,19 @@
 //! * logistic: n = 2000, p = 1000 independent N(0,1) features, 20 true non-zero
 //!   coefficients, labels drawn from the logistic model, intercept, λ = 0.05·λ_max;
 //!   logistic-correlated: n = 1000, p = 2000, AR(1) correlation 0.9 between neighbouring
-//!   columns, λ = 0.02·λ_max;
+//!   columns, λ = 0.02·λ_max; logistic-illcond: correlation 0.99, λ = 0.005·λ_max;
 //! * least-squares(-correlated): the same designs, Gaussian noise, same λ ratios;
 //! * precision: p = 1000 (500 500 coordinates), the sparse-graph data of benches/precision.rs
 //!   (each variable linked to 2 others, n = p/2 + 200 samples), λ at the 99% quantile of
 //!   the off-diagonal |S_ij|; precision-dense: λ at the 95% quantile; all solvers on the
-//!   same log-det loss (no block screening);
+//!   same log-det loss (no block screening); precision-ar1: p = 1000 variables of an AR(1)
+//!   process with coefficient 0.9, n = 1200, λ = 0.1 (ill-conditioned, denser estimate);
 //! * Gaussian CRF: p = 40 inputs, q = 45 outputs (Λ: 1035 coordinates, Θ: 1800), n = 400,
 //!   sparse true Λ (chain) and Θ (each output driven by 2 inputs), λ_Λ = λ_Θ = 0.05.
 //!
 //! Environment: `ELLONE_BENCH_LOSSES` (comma-separated subset of
-//! "logistic,logistic-correlated,least-squares,least-squares-correlated,precision,
-//! precision-dense,crf"; default all), `ELLONE_BENCH_BUDGET` (seconds per
+//! "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,
+//! precision,precision-dense,precision-ar1,crf"; default all), `ELLONE_BENCH_BUDGET` (seconds per
 //! solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
 //! target/bench-baselines).
 
@@ -150,6 +151,24 @@ fn precision_problem(quantile: f64) -> (Box<dyn Loss>, Penalty) {
     (Box::new(loss), Penalty::l1(lambda).expect("valid λ"))
 }
 
+/// An ill-conditioned precision problem: p = 1000 variables of a stationary AR(1) process
+/// with coefficient 0.9 (true precision tridiagonal, condition number ≈ 360), n = 1200
+/// centred samples, λ = 0.1.
+fn precision_ar1_problem() -> (Box<dyn Loss>, Penalty) {
+    let (n, p, rho) = (1200, 1000, 0.9);
+    let mut rng = StdRng::seed_from_u64(99);
+    let mut x = normal_matrix(&mut rng, n, p);
+    let c = (1.0f64 - rho * rho).sqrt();
+    for i in 0..n {
+        for j in 1..p {
+            x[[i, j]] = rho * x[[i, j - 1]] + c * x[[i, j]];
+        }
+    }
+    let s = sample_covariance(x.view(), true).expect("finite data");
+    let loss = LogDet::new(s.view(), false).expect("valid covariance");
+    (Box::new(loss), Penalty::l1(0.1).expect("valid λ"))
+}
+
 fn crf_problem() -> (Box<dyn Loss>, Penalty) {
     let mut rng = StdRng::seed_from_u64(45);
     let (n, p, q) = (400, 40, 45);
@@ -267,6 +286,8 @@ fn main() {
             "least-squares-correlated" => linear_problem(false, 1000, 2000, 0.9, 0.02),
             "precision" => precision_problem(0.99),
             "precision-dense" => precision_problem(0.95),
+            "precision-ar1" => precision_ar1_problem(),
+            "logistic-illcond" => linear_problem(true, 1000, 2000, 0.99, 0.005),
             "crf" => crf_problem(),
             other => {
                 eprintln!("unknown loss '{other}' in ELLONE_BENCH_LOSSES; skipped");
