@@ -227,6 +227,31 @@ impl Design {
         }
     }
 
+    /// u ← u + a·x_j and wu ← wu + a·(w ∘ x_j) in one pass over column j (keeps a weighted
+    /// copy W·u current, so a weighted product x_jᵀW u becomes a plain dot x_jᵀ(W u)).
+    #[inline]
+    pub fn col_axpy_pair(&self, j: usize, a: f64, w: &[f64], u: &mut [f64], wu: &mut [f64]) {
+        match &self.storage {
+            Storage::Dense(d) => {
+                let col = &d[j * self.n..(j + 1) * self.n];
+                for (((ui, wui), &wi), &x) in u.iter_mut().zip(wu.iter_mut()).zip(w).zip(col) {
+                    let t = a * x;
+                    *ui += t;
+                    *wui += t * wi;
+                }
+            }
+            Storage::Sparse(s) => {
+                if let Some(col) = s.outer_view(j) {
+                    for (i, &x) in col.iter() {
+                        let t = a * x;
+                        u[i] += t;
+                        wu[i] += t * w[i];
+                    }
+                }
+            }
+        }
+    }
+
     /// out ← X b, skipping zero coefficients (cost O(n · nnz(b)) dense, O(Σ nnz_j) sparse).
     pub fn matvec(&self, b: &[f64], out: &mut [f64]) {
         out.iter_mut().for_each(|v| *v = 0.0);

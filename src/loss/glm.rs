@@ -76,16 +76,6 @@ impl LinearData {
         }
     }
 
-    /// Σ_i x_ik w_i v_i.
-    #[inline]
-    pub(crate) fn col_dot_weighted(&self, k: usize, w: &[f64], v: &[f64]) -> f64 {
-        if self.is_intercept(k) {
-            w.iter().zip(v).map(|(a, b)| a * b).sum()
-        } else {
-            self.x.col_dot_weighted(k, w, v)
-        }
-    }
-
     /// Σ_i w_i x_ik².
     #[inline]
     pub(crate) fn col_weighted_sq(&self, k: usize, w: &[f64]) -> f64 {

@@ -259,6 +259,7 @@ impl Logistic {
             w,
             curv: vec![f64::NAN; self.dim()],
             u: vec![0.0; n],
+            wu: vec![0.0; n],
             inv_n: 1.0 / n as f64,
         }))
     }
@@ -276,6 +277,8 @@ struct LogisticModel<'a> {
     curv: Vec<f64>,
     /// u = [X 1] d.
     u: Vec<f64>,
+    /// W u (kept with u, so (Hd)_k is one plain column dot).
+    wu: Vec<f64>,
     inv_n: f64,
 }
 
@@ -293,13 +296,23 @@ impl LocalModel for LogisticModel<'_> {
         self.curv[k]
     }
     fn hd(&mut self, k: usize) -> f64 {
-        self.loss.data.col_dot_weighted(k, &self.w, &self.u) * self.inv_n
+        self.loss.data.col_dot(k, &self.wu) * self.inv_n
     }
     fn step(&mut self, k: usize, delta: f64) {
-        self.loss.data.col_axpy(k, delta, &mut self.u);
+        let data = &self.loss.data;
+        if data.is_intercept(k) {
+            for ((u, wu), &w) in self.u.iter_mut().zip(self.wu.iter_mut()).zip(&self.w) {
+                *u += delta;
+                *wu += delta * w;
+            }
+        } else {
+            data.x
+                .col_axpy_pair(k, delta, &self.w, &mut self.u, &mut self.wu);
+        }
     }
     fn clear(&mut self) {
         self.u.iter_mut().for_each(|v| *v = 0.0);
+        self.wu.iter_mut().for_each(|v| *v = 0.0);
     }
     fn value_along(&mut self, alpha: f64) -> Option<f64> {
         let s: f64 = self
