@@ -1,7 +1,8 @@
 //! Random small problems cross-checked against a general-purpose conic interior-point solver
 //! (the `clarabel` crate, "Clarabel: An interior-point solver for conic programs with
-//! quadratic objectives", arXiv 2405.12762, 2024): the optimal objective must agree to 1e-6
-//! relative, and the conic solver's point must not beat ours.
+//! quadratic objectives", arXiv preprint, 2024; identifier 2405.12762 from memory): the
+//! optimal objective must agree to 1e-6 relative, and the conic solver's point must not beat
+//! ours.
 //!
 //! Formulations (standard conic modelling, e.g. "Convex Optimization", Cambridge University
 //! Press, 2004, §4.4 and §4.6):

@@ -9,8 +9,8 @@
 //! * The smallest λ with an all-zero solution (λ_max): from the optimality conditions at
 //!   b = 0, λ_max = max_j |x_jᵀ(y − ȳ)|/n with an intercept (which then equals ȳ for least
 //!   squares and logit(ȳ) for logistic regression), max_j |x_jᵀy|/n (least squares) and
-//!   max_j |x_jᵀ(y − ½)|/n (logistic) without ("Regularization paths for generalized linear
-//!   models via coordinate descent", J. Statistical Software, 2010). Checked just above
+//!   max_j |x_jᵀ(y − ½)|/n (logistic) without (the subgradient condition |∇_j f(0)| ≤ λ of
+//!   the 1996 paper above, with the intercept fitted first). Checked just above
 //!   (all zero) and just below (exactly the arg-max coordinate enters, with the sign of its
 //!   correlation; for least squares with the one-variable closed form).
 

@@ -8,8 +8,9 @@
 //!   directions v (dense ones, ones supported on the zero coordinates only, single
 //!   coordinates) and ε ∈ {1e-2, 1e-4, 1e-6}. For a convex F this is the first-order
 //!   optimality condition 0 ∈ ∂F(x) seen through directional derivatives ("Convex Analysis",
-//!   Princeton University Press, 1970, §23); the tolerance 1e-12 covers rounding and the KKT
-//!   tolerance (the solver runs with tol = 1e-12, so the linear term r·ε·‖v‖₁ stays below it).
+//!   Princeton University Press, 1970, §23); the slack 1e-12 covers rounding and the KKT
+//!   tolerance (the solver runs with tol = 1e-11 and n > p, so the first-order term r·ε·‖v‖₁
+//!   is dominated by the curvature term for ε = 1e-2 and stays below the slack otherwise).
 
 #![allow(clippy::needless_range_loop)] // index loops mirror the formulas
 
