@@ -13,6 +13,11 @@
 //! `|g_k| > λ_k` (beyond the solve tolerance) is added back and the problem re-solved. The
 //! returned path is therefore exact: every point satisfies the KKT tolerance over all
 //! coordinates.
+//!
+//! **Exact rules.** A loss may also prove coordinates zero at λ
+//! ([`Loss::provably_zero`], e.g. the block-diagonal rule of a precision matrix in
+//! [`crate::cv_precision`]); with screening on, those (when currently zero) are left out of
+//! the working set too, and the same KKT check covers them.
 
 use crate::error::{Error, Result};
 use crate::loss::Loss;

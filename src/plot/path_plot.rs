@@ -21,7 +21,7 @@ pub struct PathPlotOptions {
     /// `None` draws every coordinate. Default `None`.
     pub coordinates: Option<Vec<usize>>,
     /// A name per coordinate of the problem for the legend; `None` names coordinate k
-    /// "x[k]". Default `None`.
+    /// `x[k]`. Default `None`.
     pub names: Option<Vec<String>>,
     /// Width in pixels. Default 900.
     pub width: u32,
