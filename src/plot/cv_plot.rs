@@ -60,6 +60,8 @@ pub fn plot_cv(cv: &CvResult, file: &Path, title: &str, width: u32, height: u32)
     };
     let (x_lo, x_hi) = padded(x_lo, x_hi, 0.03);
     let (y_lo, y_hi) = padded(y_lo, y_hi, 0.08);
+    // Headroom for the three-line legend in the upper left, so it does not cover data.
+    let y_hi = y_hi + 0.2 * (y_hi - y_lo);
     let score = cv
         .score_names
         .first()
