@@ -82,10 +82,15 @@ pub struct PrecisionOptions {
     /// Split the problem by the connected components of {|S_ij| > λ w_ij}. Default true.
     /// Turning it off gives the same solution (the screening is exact) at a higher cost.
     pub screening: bool,
-    /// Data input only: subtract the column means before forming S. Default true.
+    /// Data input only: subtract the column means before forming S. Default true. Turn it
+    /// off only for data that are zero-mean by construction (residuals, known centred
+    /// processes); otherwise S mixes the means into the covariance.
     pub centre: bool,
     /// Solve on the correlation scale and report Θ and Σ̂ on the original scale. Default
-    /// false.
+    /// false. Use it when the variables have different units: the penalty λ|Θ_ij| is not
+    /// scale-invariant, and on the correlation scale one λ means the same for every pair.
+    /// Leave it off when the variances themselves carry meaning. A zero-variance variable
+    /// cannot be standardised ([`Error::InvalidArgument`]).
     pub standardise: bool,
     /// Tolerances and limits of the Newton coordinate-descent driver (per block).
     pub solver: SolverOptions,

@@ -39,10 +39,13 @@ pub struct CrfOptions {
     /// λ_Θ ≥ 0, the penalty on the entries of Θ.
     pub lambda_interaction: f64,
     /// Subtract column means of X and Y before fitting. Default false (the DESIGN.md
-    /// objective on the raw data).
+    /// objective on the raw data). Use it unless a constant input column models the
+    /// offset; the fitted model adds the means back when predicting.
     pub center: bool,
     /// Divide columns of X and Y by their standard deviations (after centring, if asked).
-    /// Default false.
+    /// Default false. Use it when inputs or outputs have different units, so that λ_Λ and
+    /// λ_Θ act evenly on every entry (the ℓ1 penalty is not scale-invariant); Λ and Θ are
+    /// reported on the original scale either way. A zero-deviation column is left unscaled.
     pub standardize: bool,
     /// How products with S_xx are computed. Default [`InputMode::Auto`]. (Independently of
     /// this, each outer iteration forms S_xx[R, R] for the rows R of Θ the inner loop may
