@@ -604,6 +604,7 @@ impl Loss for LogDet {
             theta,
             w,
             wdiag,
+            w_diagonal: self.is_diagonal(x),
             active: Vec::new(),
             pos: vec![NONE; self.dim()],
             y: vec![0.0; p],
@@ -637,6 +638,8 @@ struct LogDetModel<'a> {
     w: Arc<Vec<f64>>,
     /// diag W.
     wdiag: Vec<f64>,
+    /// Whether W is diagonal (the diagonal start): then (WDW)_ij = W_ii D_ij W_jj.
+    w_diagonal: bool,
     /// (i, j, d_k) for every coordinate k = (i, j) the direction has touched.
     active: Vec<(u32, u32, f64)>,
     /// Position of coordinate k in `active`, or [`NONE`].
@@ -730,6 +733,14 @@ impl LocalModel for LogDetModel<'_> {
 
     fn hd(&mut self, k: usize) -> f64 {
         let (i, j) = self.pair(k);
+        if self.w_diagonal {
+            let d = match self.pos[k] {
+                NONE => 0.0,
+                q => self.active[q as usize].2,
+            };
+            let s = self.wdiag[i] * d * self.wdiag[j];
+            return if i == j { s } else { 2.0 * s };
+        }
         if self.ycol != j {
             self.rebuild(j);
         }
@@ -952,6 +963,26 @@ mod tests {
         for (a, b) in hf.iter().zip(&hs) {
             assert!((a - b).abs() < 1e-10);
         }
+    }
+
+    /// At a diagonal Θ (the default start) the model takes the shortcut
+    /// (WDW)_ij = W_ii D_ij W_jj; it must agree with the generic model.
+    #[test]
+    fn diagonal_point_model_matches_generic_model() {
+        let loss = LogDet::new(random_spd(12, 4).view(), false).unwrap();
+        let x = loss.start();
+        let mut fast = loss.local_model(&x).unwrap();
+        let mut slow = HessVecModel::new(&loss, &x).unwrap();
+        for &(k, d) in &[(1usize, 0.1), (3, -0.2), (5, 0.05), (1, 0.02), (9, 0.3)] {
+            fast.step(k, d);
+            slow.step(k, d);
+            for q in 0..loss.dim() {
+                assert!((fast.hd(q) - slow.hd(q)).abs() < 1e-12, "(Hd)_k at {q}");
+                assert!((fast.curvature(q) - slow.curvature(q)).abs() < 1e-12);
+            }
+        }
+        let v = fast.value_along(0.5).unwrap();
+        assert!((v - slow.value_along(0.5).unwrap()).abs() < 1e-12);
     }
 
     /// The cached factorisation is reused only for the same matrix: after a line-search
