@@ -98,7 +98,7 @@ fn build(c: &Case) -> (Box<dyn Loss>, Penalty, Vec<f64>, Vec<f64>) {
     };
     let dim = loss.dim();
     let w: Vec<f64> = (0..dim)
-        .map(|k| {
+        .map(|_| {
             if c.weighted {
                 rng.random_range(0.0..2.0)
             } else {
