@@ -26,7 +26,8 @@
 //! "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,
 //! precision,precision-dense,precision-ar1,crf"; default all), `ELLONE_BENCH_BUDGET` (seconds per
 //! solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
-//! target/bench-baselines).
+//! target/bench-baselines), `ELLONE_BENCH_SOLVERS` (baselines to run besides Newton-CD,
+//! default "fista,admm,owl-qn").
 
 use ellone::crf::{CrfData, CrfLoss, InputMode};
 use ellone::linalg;
@@ -195,18 +196,27 @@ fn crf_problem() -> (Box<dyn Loss>, Penalty) {
     (Box::new(loss), Penalty::l1(1.0).expect("valid λ"))
 }
 
+/// Newton-CD first (the base of the ratios), then the baselines named in
+/// `ELLONE_BENCH_SOLVERS` (default "fista,admm,owl-qn").
 fn solvers() -> Vec<Box<dyn Solver>> {
     let o = SolverOptions {
         tol: 1e-14,
         max_iter: usize::MAX / 2,
         ..Default::default()
     };
-    vec![
-        Box::new(NewtonCd::new(o.clone())),
-        Box::new(Fista::new(o.clone())),
-        Box::new(Admm::new(o.clone())),
-        Box::new(Owlqn::new(o)),
-    ]
+    let chosen =
+        std::env::var("ELLONE_BENCH_SOLVERS").unwrap_or_else(|_| "fista,admm,owl-qn".into());
+    let mut out: Vec<Box<dyn Solver>> = vec![Box::new(NewtonCd::new(o.clone()))];
+    for name in chosen.split(',').map(str::trim) {
+        match name {
+            "fista" => out.push(Box::new(Fista::new(o.clone()))),
+            "admm" => out.push(Box::new(Admm::new(o.clone()))),
+            "owl-qn" => out.push(Box::new(Owlqn::new(o.clone()))),
+            "newton-cd" | "" => {}
+            other => eprintln!("unknown solver '{other}' in ELLONE_BENCH_SOLVERS; skipped"),
+        }
+    }
+    out
 }
 
 fn report(name: &str, result: &RaceResult, budget: f64) {
@@ -306,6 +316,7 @@ fn main() {
             Ok(result) => {
                 report(name, &result, budget);
                 let _ = result.write_csv_file(&out.join(format!("{name}.csv")));
+                #[cfg(feature = "cli")]
                 let _ = ellone::race_plot::plot_race(
                     &result,
                     &out.join(format!("{name}.svg")),

@@ -1,5 +1,7 @@
 //! Solver races: CSV layout and consistency, the SVG convergence plot (rendered to PNG by an
-//! outside SVG renderer when one is installed) and the order of its lines.
+//! outside SVG renderer when one is installed) and the order of its lines. Needs the `cli`
+//! feature (the plot and the command-line tool).
+#![cfg(feature = "cli")]
 
 mod common;
 
