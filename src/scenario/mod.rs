@@ -11,5 +11,8 @@
 //! | [`district_heating`] | next-day hourly heat demand at the substations of a district-heating network |
 
 pub mod district_heating;
+#[cfg(feature = "cli")]
+pub mod figures;
+pub mod pipeline;
 
 pub use district_heating::{generate, HeatingConfig, HeatingData, YearSplit};

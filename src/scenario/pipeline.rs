@@ -1,0 +1,1189 @@
+//! The district-heating forecasting pipeline, end to end: generate the scenario, split it by
+//! time, fit the sparse Gaussian CRF path and two comparison models, choose tuning
+//! parameters on the validation year and score everything on the test year.
+//!
+//! The example `district_heating` is a thin wrapper around [`run_with`]; the integration
+//! test runs [`PipelineConfig::small`].
+//!
+//! **Forecasts are decision support.** The numbers produced here come from a *synthetic*
+//! network with a known model; before a forecast of this kind is used operationally it must
+//! be validated against the operator's own data and standards.
+//!
+//! # Steps
+//!
+//! 1. **Data.** [`generate`] the scenario (fixed seed) and split it chronologically:
+//!    the first `train_years` years for fitting, the next `validation_years` for choosing
+//!    tuning parameters, the rest (one year by default) for the final evaluation. Inputs
+//!    are standardised with the *training* means and standard deviations; the generator's
+//!    constant column is dropped and replaced by an intercept (every model below has one,
+//!    unpenalised).
+//! 2. **Per-output lasso with independent Gaussian errors** (comparison a). For every
+//!    output k separately, least squares with an intercept on the standardised inputs,
+//!    `(1/(2n)) Σ_i (y_ik − b0_k − x_iᵀb_k)² + λ_k Σ_j |b_jk|`, along a log-spaced path of
+//!    `lasso_lambdas` values down to `lasso_ratio·λ_max`; λ_k minimises the validation mean
+//!    squared error. Errors are modelled as independent, N(0, v_k) with
+//!    `v_k = RSS_k / (n − df_k)` from the training fit (df_k = non-zeros + 1).
+//! 3. **Unpenalised least squares with the full residual covariance** (comparison b). The
+//!    multivariate least-squares fit `B = (X̃ᵀX̃)⁻¹X̃ᵀY` (X̃ = standardised inputs and a column
+//!    of ones) by a Cholesky factorisation of X̃ᵀX̃ (a ridge of 1e-10·tr/p is added only if
+//!    that fails, and reported), and the residual covariance `S = RᵀR/(n − p̃)` — the natural
+//!    unpenalised Gaussian model with correlated errors. (If S is not positive definite, its
+//!    diagonal is used instead and the report says so.)
+//! 4. **Sparse Gaussian CRF** (the main model). Outputs are centred and scaled by the
+//!    residual standard deviation of the lasso fit, `y'_k = (y_k − ȳ_k)/√v_k`, so that the
+//!    penalty on Λ acts on a correlation-like scale and one λ suits substations from 3 to
+//!    30 MW; inputs are the standardised ones. The CRF objective of DESIGN.md is minimised
+//!    with Newton coordinate descent over a path λ_Λ ∈ `crf_lambdas` (decreasing, warm
+//!    starts) for each ratio c ∈ `theta_ratios`, λ_Θ = c·λ_Λ. The first point of each path
+//!    starts from the lasso fit (Λ = diag(1/mean r'²), Θ = −B̂'Λ), a point close to the
+//!    solution; the solution of a convex problem does not depend on the start. The pair
+//!    (λ_Λ, λ_Θ) with the smallest validation negative log-likelihood is chosen. In the
+//!    original units the model is
+//!    `y | x ~ N(ȳ + D(−Σ'Θ'ᵀx'), DΣ'D)`, D = diag(√v), so Λ = D⁻¹Λ'D⁻¹ has the sparsity
+//!    pattern of Λ'.
+//! 5. **Test-year scores** for the CRF, both comparisons and the *oracle* (the true
+//!    generating model, the best any method could do), all in MW:
+//!    * RMSE of the mean forecast over all days and outputs;
+//!    * negative log-likelihood of the day's q-vector, `½[q log 2π + log det Σ + rᵀΣ⁻¹r]`,
+//!      averaged over days (nats per day, lower is better);
+//!    * energy score of `scenarios` joint scenarios per day ("Strictly proper scoring rules,
+//!      prediction, and estimation", J. American Statistical Association, 2007), averaged
+//!      over days;
+//!    * CRPS of the Gaussian marginals (closed form, same paper), averaged over days and
+//!      outputs.
+//!
+//!    Scenarios are `μ + L z` with `LLᵀ = Σ` (Cholesky) and the *same* standard normal draws
+//!    z for every model (common random numbers, seeded per day), so differences between the
+//!    models are not sampling noise.
+//! 6. **Reserve.** For each test day, the network's peak demand `P = max_h Σ_s y_{s,h}` (the
+//!    hour of the day with the largest total over substations). Each model's scenarios give
+//!    a distribution of P; its 95th percentile is the capacity that model would provision,
+//!    and `reserve = q95(P) − P̂` with P̂ the peak of the mean forecast. Reported: the mean
+//!    reserve over the test year and the empirical coverage (the fraction of test days
+//!    whose actual peak is at most the provisioned q95; 0.95 is the target). Independent
+//!    errors understate the spread of a sum of positively correlated errors, so they
+//!    provision too little and cover less than 95 % of days.
+//! 7. **Structure.** Precision and recall of the estimated edges of Λ (non-zero
+//!    off-diagonal entries, each pair once) against the true edges; the chance level is the
+//!    edge density (the precision of a random guess).
+//! 8. **Solver race** (optional, timing-dependent, so not part of the reproducible numbers):
+//!    Newton coordinate descent against the baseline solvers on the chosen (λ_Λ, λ_Θ)
+//!    problem, from a common start, each with the same small wall-clock budget.
+
+use std::ops::Range;
+use std::time::{Duration, Instant};
+
+use ndarray::{s, Array1, Array2, ArrayView1, ArrayView2};
+use rayon::prelude::*;
+
+use super::district_heating::{generate, HeatingConfig, HeatingData};
+use crate::crf::scores::{energy_score, gaussian_crps};
+use crate::crf::{model_from_solution, Alternating, CrfData, CrfLoss, CrfModel, InputMode};
+use crate::error::{Error, Result};
+use crate::linalg::{cholesky, matmul};
+use crate::loss::LeastSquares;
+use crate::path::{fit_path, PathOptions};
+use crate::penalty::Penalty;
+use crate::race::{RaceEntry, RaceResult};
+use crate::solver::{Control, Fista, NewtonCd, Owlqn, Solver, SolverOptions, Status, TraceRecord};
+
+/// Everything the pipeline needs; [`PipelineConfig::default`] is the documented scenario,
+/// [`PipelineConfig::small`] a reduced one for tests.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PipelineConfig {
+    /// The scenario (network size, history length, seed).
+    pub scenario: HeatingConfig,
+    /// Whole years used for fitting (default 4).
+    pub train_years: usize,
+    /// Whole years used for choosing tuning parameters (default 1); the remaining days
+    /// form the test set.
+    pub validation_years: usize,
+    /// λ_Λ values of the CRF path, on the scaled problem (see the module docs); sorted
+    /// decreasing internally.
+    pub crf_lambdas: Vec<f64>,
+    /// Ratios c with λ_Θ = c·λ_Λ; one warm-started path per ratio.
+    pub theta_ratios: Vec<f64>,
+    /// Relative KKT tolerance of every CRF fit (default 1e-5).
+    pub crf_tol: f64,
+    /// Outer-iteration limit of every CRF fit (default 200).
+    pub crf_max_iter: usize,
+    /// Number of λ values on each output's lasso path (default 20).
+    pub lasso_lambdas: usize,
+    /// λ_min/λ_max of each output's lasso path (default 1e-3).
+    pub lasso_ratio: f64,
+    /// Joint scenarios per test day for the energy score and the reserve (default 200).
+    pub scenarios: usize,
+    /// Seed of the scenario draws (default 7).
+    pub sample_seed: u64,
+    /// Substation shown in the forecast fan (default 0).
+    pub fan_substation: usize,
+    /// Wall-clock budget per solver of the solver race; `None` skips the race.
+    pub race_budget: Option<Duration>,
+}
+
+impl Default for PipelineConfig {
+    fn default() -> Self {
+        Self {
+            scenario: HeatingConfig::default(),
+            train_years: 4,
+            validation_years: 1,
+            crf_lambdas: vec![0.4, 0.2, 0.1, 0.05, 0.025],
+            theta_ratios: vec![1.0],
+            crf_tol: 1e-5,
+            crf_max_iter: 200,
+            lasso_lambdas: 20,
+            lasso_ratio: 1e-3,
+            scenarios: 200,
+            sample_seed: 7,
+            fan_substation: 0,
+            race_budget: Some(Duration::from_secs(5)),
+        }
+    }
+}
+
+impl PipelineConfig {
+    /// A reduced configuration for tests (a few seconds): 4 substations on 2 trunks, 6
+    /// four-hour outputs each (q = 24), 2 weather zones (p = 56), three years (one each for
+    /// training, validation and test), a three-point CRF path, 100 scenarios, no race.
+    pub fn small() -> Self {
+        Self {
+            scenario: HeatingConfig {
+                substations: 4,
+                hours: 6,
+                trunks: 2,
+                zones: 2,
+                days: 3 * super::district_heating::DAYS_PER_YEAR,
+                ..HeatingConfig::default()
+            },
+            train_years: 1,
+            validation_years: 1,
+            crf_lambdas: vec![0.2, 0.1, 0.05],
+            theta_ratios: vec![1.0],
+            lasso_lambdas: 10,
+            scenarios: 100,
+            race_budget: None,
+            ..Self::default()
+        }
+    }
+
+    fn validate(&self) -> Result<()> {
+        let bad = |m: String| Err(Error::InvalidArgument(m));
+        if self.crf_lambdas.is_empty() || self.theta_ratios.is_empty() {
+            return bad("the CRF grid needs at least one λ_Λ and one ratio".into());
+        }
+        for &v in self.crf_lambdas.iter().chain(&self.theta_ratios) {
+            if !(v.is_finite() && v > 0.0) {
+                return bad(format!("CRF grid values must be finite and > 0, got {v}"));
+            }
+        }
+        if !(self.crf_tol.is_finite() && self.crf_tol > 0.0) {
+            return bad(format!(
+                "crf_tol must be finite and > 0, got {}",
+                self.crf_tol
+            ));
+        }
+        if self.crf_max_iter == 0 || self.lasso_lambdas == 0 {
+            return bad("crf_max_iter and lasso_lambdas must be at least 1".into());
+        }
+        if !(self.lasso_ratio > 0.0 && self.lasso_ratio <= 1.0) {
+            return bad(format!(
+                "lasso_ratio must lie in (0, 1], got {}",
+                self.lasso_ratio
+            ));
+        }
+        if self.scenarios < 20 {
+            return bad(format!(
+                "at least 20 scenarios are needed for a 95th percentile, got {}",
+                self.scenarios
+            ));
+        }
+        if self.fan_substation >= self.scenario.substations {
+            return bad(format!(
+                "fan_substation {} is not one of the {} substations",
+                self.fan_substation, self.scenario.substations
+            ));
+        }
+        if let Some(b) = self.race_budget {
+            if b.is_zero() {
+                return bad("race_budget must be positive (or None to skip the race)".into());
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Receives progress of the long steps (a terminal progress bar in the example).
+pub trait Progress {
+    /// A step with `total` units of work starts.
+    fn begin(&mut self, step: &str, total: u64);
+    /// `units` more units are done.
+    fn advance(&mut self, units: u64);
+    /// The current step is finished.
+    fn end(&mut self);
+    /// A short status message within the current step (default: ignored).
+    fn note(&mut self, _message: &str) {}
+}
+
+/// A [`Progress`] that ignores everything.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Silent;
+
+impl Progress for Silent {
+    fn begin(&mut self, _: &str, _: u64) {}
+    fn advance(&mut self, _: u64) {}
+    fn end(&mut self) {}
+}
+
+/// Sizes of the problem and of the three parts of the split.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct Sizes {
+    /// Substations S.
+    pub substations: usize,
+    /// Hours per day H.
+    pub hours: usize,
+    /// Outputs q = S·H.
+    pub outputs: usize,
+    /// Inputs p of the generator (including its constant column).
+    pub inputs: usize,
+    /// Training days.
+    pub train_days: usize,
+    /// Validation days.
+    pub validation_days: usize,
+    /// Test days.
+    pub test_days: usize,
+}
+
+/// One fit of the CRF grid.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct CrfGridPoint {
+    /// λ_Λ (scaled problem).
+    pub lambda_precision: f64,
+    /// λ_Θ = c·λ_Λ.
+    pub lambda_interaction: f64,
+    /// Mean validation negative log-likelihood per day (nats, original units).
+    pub validation_nll: f64,
+    /// Edges of Λ (non-zero off-diagonal pairs).
+    pub edges: usize,
+    /// Non-zero entries of Θ.
+    pub interaction_nnz: usize,
+    /// Newton iterations.
+    pub iterations: usize,
+    /// Solver status.
+    pub status: Status,
+    /// KKT residual at the returned point.
+    pub kkt_residual: f64,
+}
+
+/// The per-output lasso comparison.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct LassoSummary {
+    /// Mean number of non-zero coefficients per output (intercept excluded).
+    pub mean_nnz: f64,
+    /// Chosen λ_k / λ_max,k, averaged (geometric mean) over outputs.
+    pub mean_ratio: f64,
+    /// Outputs whose chosen λ is the smallest of the path (the path may be too short).
+    pub at_path_end: usize,
+}
+
+/// The unpenalised least-squares comparison.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct OlsSummary {
+    /// Ridge added to X̃ᵀX̃ (0 when the plain Cholesky factorisation succeeded).
+    pub ridge: f64,
+    /// Whether the full residual covariance was positive definite and used (otherwise its
+    /// diagonal was used).
+    pub full_covariance: bool,
+}
+
+/// Test-year scores of one model (all in MW except the log-likelihood).
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct ModelScores {
+    /// Model name.
+    pub name: String,
+    /// Root mean squared error of the mean forecast, MW.
+    pub rmse: f64,
+    /// Mean negative log-likelihood per test day, nats (lower is better).
+    pub nll: f64,
+    /// Mean energy score per test day, MW (lower is better).
+    pub energy_score: f64,
+    /// Mean CRPS per output and day, MW (lower is better).
+    pub crps: f64,
+    /// Mean provisioned reserve q95(P) − P̂ over the test days, MW.
+    pub reserve: f64,
+    /// Fraction of test days whose actual network peak is ≤ the provisioned q95.
+    pub coverage: f64,
+}
+
+/// Recovery of the edges of Λ.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct EdgeRecovery {
+    /// Edges of the true Λ.
+    pub true_edges: usize,
+    /// Edges of the estimate.
+    pub found_edges: usize,
+    /// Estimated edges that are true edges.
+    pub true_positives: usize,
+    /// true_positives / found_edges.
+    pub precision: f64,
+    /// true_positives / true_edges.
+    pub recall: f64,
+    /// Edge density true_edges / (q(q−1)/2): the precision of a random guess.
+    pub chance: f64,
+}
+
+/// The data of the forecast-fan figure: one substation on one test day.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct Fan {
+    /// Substation index.
+    pub substation: usize,
+    /// Day of the year (1..=365) of the test day shown.
+    pub day_of_year: u32,
+    /// Start of each output hour, clock hours.
+    pub hour_start: Vec<f64>,
+    /// Actual demand, MW.
+    pub actual: Vec<f64>,
+    /// CRF mean forecast, MW.
+    pub mean: Vec<f64>,
+    /// CRF scenario quantiles 5 %, 25 %, 50 %, 75 %, 95 % (one vector each), MW.
+    pub quantiles: Vec<Vec<f64>>,
+    /// A few CRF scenarios, MW.
+    pub scenarios: Vec<Vec<f64>>,
+    /// Lasso (independent errors) 5 % and 95 % quantiles, MW.
+    pub lasso_band: Vec<Vec<f64>>,
+}
+
+/// Wall-clock time of one step.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct Timing {
+    /// Step name.
+    pub step: String,
+    /// Seconds.
+    pub seconds: f64,
+}
+
+/// Everything the pipeline measured. All fields except [`Report::timings`] and
+/// [`Report::race`] are reproducible: the same configuration gives identical numbers.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct Report {
+    /// Problem sizes.
+    pub sizes: Sizes,
+    /// The CRF grid in fitting order (paths of decreasing λ_Λ, one per ratio).
+    pub crf_grid: Vec<CrfGridPoint>,
+    /// Index of the chosen grid point (smallest validation negative log-likelihood).
+    pub chosen: usize,
+    /// The lasso comparison.
+    pub lasso: LassoSummary,
+    /// The least-squares comparison.
+    pub ols: OlsSummary,
+    /// Test-year scores: "sparse CRF", "lasso, independent errors", "least squares, full
+    /// covariance", "oracle (true model)".
+    pub models: Vec<ModelScores>,
+    /// Edge recovery of the chosen CRF's Λ.
+    pub structure: EdgeRecovery,
+    /// Edges (i < j) of the chosen CRF's Λ.
+    pub learned_edges: Vec<(usize, usize)>,
+    /// Edges (i < j) of the true Λ.
+    pub true_edges: Vec<(usize, usize)>,
+    /// Forecast fan data.
+    pub fan: Fan,
+    /// The solver race on the chosen problem (timing-dependent), when run.
+    pub race: Option<crate::race::RaceResult>,
+    /// Wall-clock time per step (timing-dependent).
+    pub timings: Vec<Timing>,
+}
+
+impl Report {
+    /// The scores of the model called `name`.
+    pub fn model(&self, name: &str) -> Option<&ModelScores> {
+        self.models.iter().find(|m| m.name == name)
+    }
+}
+
+/// Name of the CRF in [`Report::models`].
+pub const CRF: &str = "sparse CRF";
+/// Name of the lasso comparison in [`Report::models`].
+pub const LASSO: &str = "lasso, independent errors";
+/// Name of the least-squares comparison in [`Report::models`].
+pub const OLS: &str = "least squares, full covariance";
+/// Name of the true model in [`Report::models`].
+pub const ORACLE: &str = "oracle (true model)";
+
+/// Runs the pipeline without progress output.
+///
+/// # Errors
+/// [`Error::InvalidArgument`] for an invalid configuration; any error of the generator or
+/// the solvers.
+pub fn run(config: &PipelineConfig) -> Result<Report> {
+    run_with(config, &mut Silent)
+}
+
+/// Standardisation of the non-constant inputs with training statistics.
+struct InputScaling {
+    columns: Vec<usize>,
+    mean: Vec<f64>,
+    sd: Vec<f64>,
+}
+
+impl InputScaling {
+    fn fit(x: ArrayView2<f64>) -> Self {
+        let n = x.nrows() as f64;
+        let mut columns = Vec::new();
+        let (mut mean, mut sd) = (Vec::new(), Vec::new());
+        for (j, col) in x.columns().into_iter().enumerate() {
+            let m = col.sum() / n;
+            let v = col.iter().map(|t| (t - m) * (t - m)).sum::<f64>() / n;
+            if v > 0.0 {
+                columns.push(j);
+                mean.push(m);
+                sd.push(v.sqrt());
+            }
+        }
+        Self { columns, mean, sd }
+    }
+
+    fn apply(&self, x: ArrayView2<f64>) -> Array2<f64> {
+        let mut out = Array2::zeros((x.nrows(), self.columns.len()));
+        for (a, &j) in self.columns.iter().enumerate() {
+            let (m, s) = (self.mean[a], self.sd[a]);
+            out.column_mut(a)
+                .iter_mut()
+                .zip(x.column(j))
+                .for_each(|(o, v)| *o = (v - m) / s);
+        }
+        out
+    }
+}
+
+/// The data of one split part, inputs standardised.
+struct Part {
+    x: Array2<f64>,
+    y: Array2<f64>,
+    rows: Range<usize>,
+}
+
+fn timed<T>(timings: &mut Vec<Timing>, step: &str, f: impl FnOnce() -> Result<T>) -> Result<T> {
+    let t = Instant::now();
+    let out = f()?;
+    timings.push(Timing {
+        step: step.to_string(),
+        seconds: t.elapsed().as_secs_f64(),
+    });
+    Ok(out)
+}
+
+/// The lasso fit of one output: coefficients on the standardised inputs, intercept,
+/// training residual variance, chosen λ/λ_max and whether it was the path's last point.
+struct LassoFit {
+    b: Vec<f64>,
+    b0: f64,
+    var: f64,
+    ratio: f64,
+    at_end: bool,
+}
+
+fn lasso_output(train: &Part, val: &Part, k: usize, config: &PipelineConfig) -> Result<LassoFit> {
+    let y = train.y.column(k).to_vec();
+    let loss = LeastSquares::from_dense(train.x.view(), &y, true)?;
+    let opts = PathOptions {
+        n_lambdas: config.lasso_lambdas,
+        ratio: Some(config.lasso_ratio),
+        solver: NewtonCd::new(SolverOptions {
+            tol: 1e-7,
+            ..Default::default()
+        }),
+        ..Default::default()
+    };
+    let path = fit_path(&loss, &Penalty::l1(1.0)?, train.x.dim(), &opts)?;
+    let p = train.x.ncols();
+    let yv = val.y.column(k);
+    let mut best = (f64::INFINITY, 0usize);
+    for (i, pt) in path.points.iter().enumerate() {
+        let x = pt.x.to_dense();
+        let b = ArrayView1::from(&x[..p]);
+        let pred = val.x.dot(&b);
+        let mse = pred
+            .iter()
+            .zip(yv)
+            .map(|(a, t)| (a + x[p] - t).powi(2))
+            .sum::<f64>();
+        if mse < best.0 {
+            best = (mse, i);
+        }
+    }
+    let pt = &path.points[best.1];
+    let x = pt.x.to_dense();
+    let b = x[..p].to_vec();
+    let b0 = x[p];
+    let fitted = train.x.dot(&ArrayView1::from(&b[..]));
+    let rss: f64 = fitted
+        .iter()
+        .zip(train.y.column(k))
+        .map(|(f, t)| (t - f - b0).powi(2))
+        .sum();
+    let df = b.iter().filter(|v| **v != 0.0).count() + 1;
+    let n = train.x.nrows();
+    let var = rss / (n.saturating_sub(df).max(1)) as f64;
+    if !(var > 0.0 && var.is_finite()) {
+        return Err(Error::Numerical(format!(
+            "lasso residual variance of output {k} is {var}"
+        )));
+    }
+    Ok(LassoFit {
+        b,
+        b0,
+        var,
+        ratio: pt.lambda / path.lambda_max,
+        at_end: best.1 + 1 == path.points.len(),
+    })
+}
+
+/// Fits the per-output lassos in parallel, reporting progress per chunk of outputs.
+fn fit_lassos(
+    train: &Part,
+    val: &Part,
+    config: &PipelineConfig,
+    progress: &mut dyn Progress,
+) -> Result<Vec<LassoFit>> {
+    let q = train.y.ncols();
+    progress.begin("lasso paths (one per output)", q as u64);
+    let mut fits = Vec::with_capacity(q);
+    let chunk = 16;
+    for start in (0..q).step_by(chunk) {
+        let end = (start + chunk).min(q);
+        let part: Vec<LassoFit> = (start..end)
+            .into_par_iter()
+            .map(|k| lasso_output(train, val, k, config))
+            .collect::<Result<_>>()?;
+        fits.extend(part);
+        progress.advance((end - start) as u64);
+    }
+    progress.end();
+    Ok(fits)
+}
+
+/// Appends a column of ones.
+fn with_ones(x: &Array2<f64>) -> Array2<f64> {
+    let (n, p) = x.dim();
+    let mut out = Array2::ones((n, p + 1));
+    out.slice_mut(s![.., ..p]).assign(x);
+    out
+}
+
+/// The Gaussian model N(Bᵀx + b, Σ) as a CRF on the same inputs: Λ = Σ⁻¹, Θ = −BΛ, offset
+/// b (then the CRF mean b − ΣΘᵀx = b + Bᵀx). `precision` is Σ⁻¹.
+fn gaussian_as_crf(b: &Array2<f64>, offset: Vec<f64>, precision: Array2<f64>) -> Result<CrfModel> {
+    let theta = -matmul(b.view(), precision.view());
+    CrfModel::from_parts(precision, theta, offset)
+}
+
+/// Multivariate least squares B = (X̃ᵀX̃)⁻¹X̃ᵀY with the residual covariance, as a model.
+fn fit_ols(train: &Part) -> Result<(CrfModel, OlsSummary)> {
+    let xt = with_ones(&train.x);
+    let (n, p) = xt.dim();
+    if n <= p {
+        return Err(Error::InvalidArgument(format!(
+            "least squares needs more training days ({n}) than inputs ({p})"
+        )));
+    }
+    let mut xtx = matmul(xt.t(), xt.view());
+    let mut ridge = 0.0;
+    let chol = match cholesky(xtx.view()) {
+        Some(c) => c,
+        None => {
+            ridge = 1e-10 * xtx.diag().sum() / p as f64;
+            for i in 0..p {
+                xtx[[i, i]] += ridge;
+            }
+            cholesky(xtx.view())
+                .ok_or_else(|| Error::NotPositiveDefinite("XᵀX of the least-squares fit".into()))?
+        }
+    };
+    let xty = matmul(xt.t(), train.y.view());
+    let b = chol.solve_mat(xty.view());
+    let r = &train.y - &matmul(xt.view(), b.view());
+    let mut sigma = matmul(r.t(), r.view());
+    sigma.mapv_inplace(|v| v / (n - p) as f64);
+    symmetrise(&mut sigma);
+    let q = sigma.nrows();
+    let (precision, full) = match cholesky(sigma.view()) {
+        Some(c) => (c.inverse(), true),
+        None => (
+            Array2::from_diag(&sigma.diag().mapv(|v| 1.0 / v.max(f64::MIN_POSITIVE))),
+            false,
+        ),
+    };
+    let offset = b.row(p - 1).to_vec();
+    let bx = b.slice(s![..p - 1, ..]).to_owned();
+    debug_assert_eq!(offset.len(), q);
+    Ok((
+        gaussian_as_crf(&bx, offset, precision)?,
+        OlsSummary {
+            ridge,
+            full_covariance: full,
+        },
+    ))
+}
+
+fn symmetrise(a: &mut Array2<f64>) {
+    let n = a.nrows();
+    for i in 0..n {
+        for j in 0..i {
+            let v = 0.5 * (a[[i, j]] + a[[j, i]]);
+            a[[i, j]] = v;
+            a[[j, i]] = v;
+        }
+    }
+}
+
+/// The scaled CRF problem: y' = (y − ȳ)/d with d the lasso residual sds.
+struct CrfProblem {
+    loss: CrfLoss,
+    y_mean: Vec<f64>,
+    y_scale: Vec<f64>,
+    /// The common start: the lasso fit on the scaled problem.
+    start: Vec<f64>,
+}
+
+impl CrfProblem {
+    fn new(train: &Part, lassos: &[LassoFit], ratio: f64) -> Result<Self> {
+        let (n, q) = train.y.dim();
+        let p = train.x.ncols();
+        let y_mean: Vec<f64> = (0..q).map(|k| train.y.column(k).sum() / n as f64).collect();
+        let y_scale: Vec<f64> = lassos.iter().map(|f| f.var.sqrt()).collect();
+        let mut ys = train.y.clone();
+        for (k, mut col) in ys.columns_mut().into_iter().enumerate() {
+            let (a, b) = (y_mean[k], y_scale[k]);
+            col.mapv_inplace(|v| (v - a) / b);
+        }
+        let data = CrfData::new(train.x.view(), ys.view(), false, false, InputMode::Auto)?;
+        let loss = CrfLoss::new(data, 1.0, ratio)?;
+        // Start: Λ = diag(1/mean r'²), Θ = −B̂'Λ from the lasso.
+        let mut b_scaled = Array2::zeros((p, q));
+        let mut lam0 = Array2::zeros((q, q));
+        for (k, f) in lassos.iter().enumerate() {
+            for j in 0..p {
+                b_scaled[[j, k]] = f.b[j] / y_scale[k];
+            }
+            let fitted = train.x.dot(&ArrayView1::from(&f.b[..]));
+            let ms: f64 = fitted
+                .iter()
+                .zip(train.y.column(k))
+                .map(|(a, t)| ((t - f.b0 - a) / y_scale[k]).powi(2))
+                .sum::<f64>()
+                / n as f64;
+            lam0[[k, k]] = 1.0 / ms.max(1e-12);
+        }
+        let theta0 = -matmul(b_scaled.view(), lam0.view());
+        let start = loss.pack(lam0.view(), theta0.view())?;
+        Ok(Self {
+            loss,
+            y_mean,
+            y_scale,
+            start,
+        })
+    }
+
+    /// The model in MW from coordinates x of the scaled problem:
+    /// Λ = D⁻¹Λ'D⁻¹, Θ = Θ'D⁻¹, offset ȳ (see the module docs).
+    fn model(&self, x: &[f64]) -> Result<CrfModel> {
+        let scaled = model_from_solution(&self.loss, x)?;
+        let d = &self.y_scale;
+        let mut lam = scaled.precision().to_owned();
+        for ((i, j), v) in lam.indexed_iter_mut() {
+            *v /= d[i] * d[j];
+        }
+        let mut theta = scaled.interaction().to_owned();
+        for ((_, j), v) in theta.indexed_iter_mut() {
+            *v /= d[j];
+        }
+        CrfModel::from_parts(lam, theta, self.y_mean.clone())
+    }
+}
+
+fn edges_of(a: ArrayView2<f64>) -> Vec<(usize, usize)> {
+    let q = a.nrows();
+    let mut e = Vec::new();
+    for i in 0..q {
+        for j in i + 1..q {
+            if a[[i, j]] != 0.0 {
+                e.push((i, j));
+            }
+        }
+    }
+    e
+}
+
+/// The chosen CRF: its problem, coordinates and model.
+struct ChosenCrf {
+    problem: CrfProblem,
+    model: CrfModel,
+}
+
+/// Fits the CRF grid; returns the grid, the index of the chosen point and the chosen fit.
+fn fit_crf_grid(
+    train: &Part,
+    val: &Part,
+    lassos: &[LassoFit],
+    config: &PipelineConfig,
+    progress: &mut dyn Progress,
+) -> Result<(Vec<CrfGridPoint>, usize, ChosenCrf)> {
+    let mut lambdas = config.crf_lambdas.clone();
+    lambdas.sort_by(|a, b| b.total_cmp(a));
+    let total = (lambdas.len() * config.theta_ratios.len()) as u64;
+    progress.begin("sparse CRF path", total);
+    let solver = NewtonCd::new(SolverOptions {
+        tol: config.crf_tol,
+        max_iter: config.crf_max_iter,
+        ..Default::default()
+    });
+    let mut grid = Vec::new();
+    let mut best: Option<(f64, usize, ChosenCrf)> = None;
+    for &c in &config.theta_ratios {
+        let problem = CrfProblem::new(train, lassos, c)?;
+        let mut start = problem.start.clone();
+        for &lam in &lambdas {
+            let pen = Penalty::l1(lam)?;
+            let mut observer = |r: &TraceRecord| {
+                progress.note(&format!(
+                    "λ_Λ = {lam:.3}, λ_Θ = {:.3}: iteration {}, KKT {:.1e}",
+                    c * lam,
+                    r.iteration,
+                    r.kkt_residual
+                ));
+                Control::Continue
+            };
+            let sol =
+                solver.solve_observed(&problem.loss, &pen, Some(&start), Some(&mut observer))?;
+            let model = problem.model(&sol.x)?;
+            let nll = model.negative_log_likelihood(val.x.view(), val.y.view())?;
+            let theta_nnz = sol.x[problem.loss.precision_coordinates()..]
+                .iter()
+                .filter(|v| **v != 0.0)
+                .count();
+            grid.push(CrfGridPoint {
+                lambda_precision: lam,
+                lambda_interaction: c * lam,
+                validation_nll: nll,
+                edges: edges_of(model.precision()).len(),
+                interaction_nnz: theta_nnz,
+                iterations: sol.iterations,
+                status: sol.status,
+                kkt_residual: sol.kkt_residual,
+            });
+            let idx = grid.len() - 1;
+            let better = best.as_ref().is_none_or(|b| nll < b.0);
+            start = sol.x;
+            if better {
+                best = Some((
+                    nll,
+                    idx,
+                    ChosenCrf {
+                        problem: CrfProblem {
+                            loss: problem.loss.clone(),
+                            y_mean: problem.y_mean.clone(),
+                            y_scale: problem.y_scale.clone(),
+                            start: problem.start.clone(),
+                        },
+                        model,
+                    },
+                ));
+            }
+            progress.advance(1);
+        }
+    }
+    progress.end();
+    let (_, chosen, fit) = best.ok_or_else(|| Error::Numerical("empty CRF grid".into()))?;
+    Ok((grid, chosen, fit))
+}
+
+/// Network peak max_h Σ_s v[s·H + h] of one q-vector.
+fn network_peak(v: ArrayView1<f64>, substations: usize, hours: usize) -> f64 {
+    (0..hours)
+        .map(|h| (0..substations).map(|s| v[s * hours + h]).sum::<f64>())
+        .fold(f64::NEG_INFINITY, f64::max)
+}
+
+/// Empirical quantile (the ⌈level·m⌉-th smallest value).
+fn quantile(v: &mut [f64], level: f64) -> f64 {
+    v.sort_by(|a, b| a.total_cmp(b));
+    let m = v.len();
+    let k = ((level * m as f64).ceil() as usize).clamp(1, m) - 1;
+    v[k]
+}
+
+/// Seed of the scenarios of data row `row`: the same for every model (common random
+/// numbers).
+fn day_seed(config: &PipelineConfig, row: usize) -> u64 {
+    config
+        .sample_seed
+        .wrapping_mul(0x9E37_79B9_7F4A_7C15)
+        .wrapping_add(row as u64)
+}
+
+/// A model to score with the inputs it takes on the test year.
+struct Candidate<'a> {
+    name: &'static str,
+    model: &'a CrfModel,
+    x: ArrayView2<'a, f64>,
+}
+
+/// Scores one model on the test part.
+fn score(
+    c: &Candidate,
+    test: &Part,
+    config: &PipelineConfig,
+    sizes: &Sizes,
+) -> Result<ModelScores> {
+    let (nt, q) = test.y.dim();
+    let mean = c.model.predict(c.x)?;
+    let r = &test.y - &mean;
+    let rmse = (r.iter().map(|v| v * v).sum::<f64>() / (nt * q) as f64).sqrt();
+    let nll = c.model.negative_log_likelihood(c.x, test.y.view())?;
+    let sd: Vec<f64> = c
+        .model
+        .covariance()
+        .diag()
+        .iter()
+        .map(|v| v.sqrt())
+        .collect();
+    let mut crps = 0.0;
+    for (mrow, yrow) in mean.rows().into_iter().zip(test.y.rows()) {
+        for k in 0..q {
+            crps += gaussian_crps(mrow[k], sd[k], yrow[k])?;
+        }
+    }
+    crps /= (nt * q) as f64;
+    let (sn, hn) = (sizes.substations, sizes.hours);
+    let per_day: Vec<(f64, f64, bool)> = (0..nt)
+        .into_par_iter()
+        .map(|d| {
+            let sc = c.model.sample(
+                c.x.row(d),
+                config.scenarios,
+                day_seed(config, test.rows.start + d),
+            )?;
+            let es = energy_score(sc.view(), test.y.row(d))?;
+            let mut peaks: Vec<f64> = sc
+                .rows()
+                .into_iter()
+                .map(|row| network_peak(row, sn, hn))
+                .collect();
+            let q95 = quantile(&mut peaks, 0.95);
+            let point = network_peak(mean.row(d), sn, hn);
+            let actual = network_peak(test.y.row(d), sn, hn);
+            Ok((es, q95 - point, actual <= q95))
+        })
+        .collect::<Result<_>>()?;
+    let ntf = nt as f64;
+    Ok(ModelScores {
+        name: c.name.to_string(),
+        rmse,
+        nll,
+        energy_score: per_day.iter().map(|t| t.0).sum::<f64>() / ntf,
+        crps,
+        reserve: per_day.iter().map(|t| t.1).sum::<f64>() / ntf,
+        coverage: per_day.iter().filter(|t| t.2).count() as f64 / ntf,
+    })
+}
+
+/// Runs the pipeline, reporting the long steps to `progress`.
+///
+/// # Errors
+/// As [`run`].
+pub fn run_with(config: &PipelineConfig, progress: &mut dyn Progress) -> Result<Report> {
+    config.validate()?;
+    let mut timings = Vec::new();
+    let data: HeatingData = timed(&mut timings, "generate", || generate(&config.scenario))?;
+    let split = data.split_by_year(config.train_years, config.validation_years)?;
+    let (q, p_all) = (data.y.ncols(), data.x.ncols());
+    let sizes = Sizes {
+        substations: config.scenario.substations,
+        hours: data.hours,
+        outputs: q,
+        inputs: p_all,
+        train_days: split.train.len(),
+        validation_days: split.validation.len(),
+        test_days: split.test.len(),
+    };
+    let scaling = InputScaling::fit(data.x.slice(s![split.train.clone(), ..]));
+    let part = |rows: Range<usize>| Part {
+        x: scaling.apply(data.x.slice(s![rows.clone(), ..])),
+        y: data.y.slice(s![rows.clone(), ..]).to_owned(),
+        rows,
+    };
+    let (train, val, test) = (
+        part(split.train.clone()),
+        part(split.validation.clone()),
+        part(split.test.clone()),
+    );
+
+    // (a) Per-output lasso with independent errors.
+    let lassos = timed(&mut timings, "lasso paths", || {
+        fit_lassos(&train, &val, config, progress)
+    })?;
+    let p = train.x.ncols();
+    let mut lasso_b = Array2::zeros((p, q));
+    for (k, f) in lassos.iter().enumerate() {
+        lasso_b.column_mut(k).assign(&ArrayView1::from(&f.b[..]));
+    }
+    let lasso_model = gaussian_as_crf(
+        &lasso_b,
+        lassos.iter().map(|f| f.b0).collect(),
+        Array2::from_diag(&Array1::from_iter(lassos.iter().map(|f| 1.0 / f.var))),
+    )?;
+    let lasso_summary = LassoSummary {
+        mean_nnz: lassos
+            .iter()
+            .map(|f| f.b.iter().filter(|v| **v != 0.0).count() as f64)
+            .sum::<f64>()
+            / q as f64,
+        mean_ratio: (lassos.iter().map(|f| f.ratio.ln()).sum::<f64>() / q as f64).exp(),
+        at_path_end: lassos.iter().filter(|f| f.at_end).count(),
+    };
+
+    // (b) Multivariate least squares with the full residual covariance.
+    let (ols_model, ols_summary) = timed(&mut timings, "least squares", || fit_ols(&train))?;
+
+    // The sparse CRF grid, chosen on validation.
+    let (grid, chosen, crf) = timed(&mut timings, "CRF path", || {
+        fit_crf_grid(&train, &val, &lassos, config, progress)
+    })?;
+
+    // The oracle: the true model on the raw inputs.
+    let oracle = CrfModel::from_parts(
+        data.true_precision.clone(),
+        data.true_interaction.clone(),
+        vec![0.0; q],
+    )?;
+    let raw_test = data.x.slice(s![split.test.clone(), ..]);
+
+    let candidates = [
+        Candidate {
+            name: CRF,
+            model: &crf.model,
+            x: test.x.view(),
+        },
+        Candidate {
+            name: LASSO,
+            model: &lasso_model,
+            x: test.x.view(),
+        },
+        Candidate {
+            name: OLS,
+            model: &ols_model,
+            x: test.x.view(),
+        },
+        Candidate {
+            name: ORACLE,
+            model: &oracle,
+            x: raw_test,
+        },
+    ];
+    progress.begin("test-year scores", candidates.len() as u64);
+    let models = timed(&mut timings, "test-year scores", || {
+        let mut v = Vec::new();
+        for c in &candidates {
+            v.push(score(c, &test, config, &sizes)?);
+            progress.advance(1);
+        }
+        Ok(v)
+    })?;
+    progress.end();
+
+    let learned_edges = edges_of(crf.model.precision());
+    let true_edges = edges_of(data.true_precision.view());
+    let tp = learned_edges
+        .iter()
+        .filter(|&&(i, j)| data.true_precision[[i, j]] != 0.0)
+        .count();
+    let pairs = q * (q - 1) / 2;
+    let ratio = |a: usize, b: usize| if b == 0 { 0.0 } else { a as f64 / b as f64 };
+    let structure = EdgeRecovery {
+        true_edges: true_edges.len(),
+        found_edges: learned_edges.len(),
+        true_positives: tp,
+        precision: ratio(tp, learned_edges.len()),
+        recall: ratio(tp, true_edges.len()),
+        chance: ratio(true_edges.len(), pairs),
+    };
+
+    let fan = make_fan(&data, &test, &crf.model, &lasso_model, config, &sizes)?;
+
+    let race = match config.race_budget {
+        Some(budget) => Some(timed(&mut timings, "solver race", || {
+            run_race(&crf.problem, &grid[chosen], budget, progress)
+        })?),
+        None => None,
+    };
+
+    Ok(Report {
+        sizes,
+        crf_grid: grid,
+        chosen,
+        lasso: lasso_summary,
+        ols: ols_summary,
+        models,
+        structure,
+        learned_edges,
+        true_edges,
+        fan,
+        race,
+        timings,
+    })
+}
+
+fn make_fan(
+    data: &HeatingData,
+    test: &Part,
+    crf: &CrfModel,
+    lasso: &CrfModel,
+    config: &PipelineConfig,
+    sizes: &Sizes,
+) -> Result<Fan> {
+    let (sn, hn) = (sizes.substations, sizes.hours);
+    // The test day with the largest actual network peak.
+    let day = (0..test.y.nrows())
+        .max_by(|&a, &b| {
+            network_peak(test.y.row(a), sn, hn).total_cmp(&network_peak(test.y.row(b), sn, hn))
+        })
+        .unwrap_or(0);
+    let s0 = config.fan_substation;
+    let cols: Vec<usize> = (0..hn).map(|h| s0 * hn + h).collect();
+    let x = test.x.row(day);
+    let sc = crf.sample(x, config.scenarios, day_seed(config, test.rows.start + day))?;
+    let xr = x.to_owned().insert_axis(ndarray::Axis(0));
+    let mean = crf.predict(xr.view())?;
+    let lasso_mean = lasso.predict(xr.view())?;
+    let quantiles = [0.05, 0.25, 0.5, 0.75, 0.95]
+        .iter()
+        .map(|&lv| {
+            cols.iter()
+                .map(|&c| quantile(&mut sc.column(c).to_vec(), lv))
+                .collect()
+        })
+        .collect();
+    let scenarios = (0..config.scenarios.min(12))
+        .map(|i| cols.iter().map(|&c| sc[[i, c]]).collect())
+        .collect();
+    let lv = lasso.covariance();
+    // z_0.95 of the standard normal, 1.6448536269514722 (from memory).
+    let lasso_band = [-1.644_853_626_951_472_2, 1.644_853_626_951_472_2]
+        .iter()
+        .map(|&zq| {
+            cols.iter()
+                .map(|&c| lasso_mean[[0, c]] + zq * lv[[c, c]].sqrt())
+                .collect()
+        })
+        .collect();
+    Ok(Fan {
+        substation: s0,
+        day_of_year: data.day_of_year[test.rows.start + day],
+        hour_start: (0..hn).map(|h| 24.0 * h as f64 / hn as f64).collect(),
+        actual: cols.iter().map(|&c| test.y[[day, c]]).collect(),
+        mean: cols.iter().map(|&c| mean[[0, c]]).collect(),
+        quantiles,
+        scenarios,
+        lasso_band,
+    })
+}
+
+/// The race on the chosen problem: every racer from the lasso start, the same budget,
+/// traces through the observer hook; F_best is the best objective any racer reached (a
+/// high-accuracy reference solve of this problem would take longer than the race).
+fn run_race(
+    problem: &CrfProblem,
+    point: &CrfGridPoint,
+    budget: Duration,
+    progress: &mut dyn Progress,
+) -> Result<RaceResult> {
+    let pen = Penalty::l1(point.lambda_precision)?;
+    let opts = SolverOptions {
+        tol: 1e-9,
+        max_iter: 1_000_000,
+        time_limit: Some(budget),
+        ..Default::default()
+    };
+    let limit = budget.as_secs_f64();
+    let solvers: Vec<(&str, Box<dyn Solver>)> = vec![
+        ("newton-cd", Box::new(NewtonCd::new(opts.clone()))),
+        ("fista", Box::new(Fista::new(opts.clone()))),
+        ("owl-qn", Box::new(Owlqn::new(opts.clone()))),
+    ];
+    progress.begin("solver race", solvers.len() as u64 + 1);
+    let mut entries = Vec::new();
+    for (name, solver) in &solvers {
+        progress.note(name);
+        let mut records: Vec<TraceRecord> = Vec::new();
+        let mut observer = |r: &TraceRecord| {
+            records.push(r.clone());
+            if r.seconds >= limit {
+                Control::Stop
+            } else {
+                Control::Continue
+            }
+        };
+        let sol = solver.solve_observed(
+            &problem.loss,
+            &pen,
+            Some(&problem.start),
+            Some(&mut observer),
+        )?;
+        entries.push(RaceEntry {
+            solver: sol.solver.clone(),
+            records,
+            status: sol.status,
+            objective: sol.objective,
+            seconds: sol.seconds,
+        });
+        progress.advance(1);
+    }
+    {
+        progress.note("crf-alternating");
+        let mut records: Vec<TraceRecord> = Vec::new();
+        let mut observer = |r: &TraceRecord| {
+            records.push(r.clone());
+            if r.seconds >= limit {
+                Control::Stop
+            } else {
+                Control::Continue
+            }
+        };
+        let sol = Alternating::new(opts.clone()).solve(
+            &problem.loss,
+            &pen,
+            Some(&problem.start),
+            Some(&mut observer),
+        )?;
+        entries.push(RaceEntry {
+            solver: sol.solver.clone(),
+            records,
+            status: sol.status,
+            objective: sol.objective,
+            seconds: sol.seconds,
+        });
+        progress.advance(1);
+    }
+    progress.end();
+    let best = entries
+        .iter()
+        .flat_map(|e| e.records.iter().map(|r| r.objective).chain([e.objective]))
+        .fold(f64::INFINITY, f64::min);
+    Ok(RaceResult {
+        entries,
+        reference: None,
+        best_objective: best,
+        target: 1e-6,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn quantile_is_the_order_statistic() {
+        let mut v: Vec<f64> = (1..=100).map(|i| i as f64).collect();
+        assert_eq!(quantile(&mut v, 0.95), 95.0);
+        assert_eq!(quantile(&mut v, 0.5), 50.0);
+    }
+}
