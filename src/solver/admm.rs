@@ -508,3 +508,72 @@ impl Solver for Admm {
         )
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    /// Both branches of the cached least-squares solve satisfy the normal equations
+    /// (AᵀA/n + ρI)x = Aᵀy/n + ρv (textbook optimality condition of the ridge-type problem).
+    #[test]
+    fn gram_solver_satisfies_normal_equations() {
+        let tall = array![[1.0, 2.0], [0.5, -1.0], [3.0, 0.0], [-1.0, 1.0]];
+        let wide = array![[1.0, 2.0, -1.0, 0.5], [0.5, -1.0, 2.0, 1.0]];
+        for x in [tall, wide] {
+            let n = x.nrows();
+            let y: Vec<f64> = (0..n).map(|i| 1.0 + i as f64).collect();
+            let design = crate::Design::dense(x.view()).unwrap();
+            let solver = GramSolver::new(&design, &y, true).unwrap();
+            let m = x.ncols() + 1;
+            let v: Vec<f64> = (0..m).map(|k| 0.3 * k as f64 - 0.2).collect();
+            let rho = 0.7;
+            let mut sol = vec![0.0; m];
+            solver.solve(&v, rho, &mut sol);
+            let a = &solver.a;
+            let ax = a.dot(&ArrayView1::from(&sol));
+            let lhs = a.t().dot(&ax) / n as f64 + &(ArrayView1::from(&sol).to_owned() * rho);
+            let rhs = a.t().dot(&ArrayView1::from(&y)) / n as f64
+                + &(ArrayView1::from(&v).to_owned() * rho);
+            for (l, r) in lhs.iter().zip(rhs.iter()) {
+                assert!((l - r).abs() < 1e-12 * (1.0 + r.abs()), "{l} vs {r}");
+            }
+        }
+    }
+
+    /// The precision x-update satisfies its optimality condition ρΘ − Θ⁻¹ = ρV − S and is
+    /// positive definite.
+    #[test]
+    fn precision_update_satisfies_optimality() {
+        let s = array![[1.0, 0.5, 0.2], [0.5, 2.0, -0.3], [0.2, -0.3, 1.5]];
+        let mut pairs = Vec::new();
+        for j in 0..3 {
+            for i in 0..=j {
+                pairs.push((i, j));
+            }
+        }
+        let solver = PrecisionSolver {
+            s: s.clone(),
+            pairs: pairs.clone(),
+        };
+        let v: Vec<f64> = (0..pairs.len()).map(|k| 0.1 * k as f64 - 0.2).collect();
+        let rho = 1.3;
+        let mut x = vec![0.0; pairs.len()];
+        solver.solve(&v, rho, &mut x).unwrap();
+        let mut theta = Array2::<f64>::zeros((3, 3));
+        let mut vm = Array2::<f64>::zeros((3, 3));
+        for (k, &(i, j)) in pairs.iter().enumerate() {
+            theta[[i, j]] = x[k];
+            theta[[j, i]] = x[k];
+            vm[[i, j]] = v[k];
+            vm[[j, i]] = v[k];
+        }
+        let chol = crate::linalg::cholesky(theta.view()).expect("positive definite");
+        let inv = chol.inverse();
+        let lhs = &theta * rho - &inv;
+        let rhs = &vm * rho - &s;
+        for (l, r) in lhs.iter().zip(rhs.iter()) {
+            assert!((l - r).abs() < 1e-10, "{l} vs {r}");
+        }
+    }
+}

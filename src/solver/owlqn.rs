@@ -273,3 +273,56 @@ impl Solver for Owlqn {
         )
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The two-loop recursion applies the L-BFGS inverse-Hessian approximation, which
+    /// satisfies the secant condition H y_last = s_last (textbook property of the BFGS
+    /// update): −two_loop(y_last) = s_last.
+    #[test]
+    fn two_loop_satisfies_secant_condition() {
+        // Pairs from a fixed SPD matrix A: y = A s.
+        let a = [[4.0, 1.0, 0.5], [1.0, 3.0, -0.2], [0.5, -0.2, 2.0]];
+        let mul = |s: &[f64]| -> Vec<f64> {
+            (0..3)
+                .map(|i| (0..3).map(|j| a[i][j] * s[j]).sum())
+                .collect()
+        };
+        let mut history = VecDeque::new();
+        for s in [[1.0, 0.0, 0.5], [0.2, -1.0, 0.3], [0.0, 0.4, -1.0]] {
+            let y = mul(&s);
+            let sy = dot(&s, &y);
+            history.push_back((s.to_vec(), y, 1.0 / sy));
+        }
+        let (s_last, y_last, _) = history.back().unwrap().clone();
+        let mut d = vec![0.0; 3];
+        two_loop(&history, &y_last, &mut d);
+        for (dk, sk) in d.iter().zip(&s_last) {
+            assert!((-dk - sk).abs() < 1e-12, "{dk} vs {sk}");
+        }
+        // H stays symmetric positive definite when every pair has sᵀy > 0 (same source):
+        // uᵀHv = vᵀHu and vᵀHv > 0.
+        let (u, v) = ([1.0, -2.0, 0.5], [0.3, 0.7, -1.1]);
+        let (mut hu, mut hv) = (vec![0.0; 3], vec![0.0; 3]);
+        two_loop(&history, &u, &mut hu);
+        two_loop(&history, &v, &mut hv);
+        assert!((dot(&v, &hu) - dot(&u, &hv)).abs() < 1e-12);
+        assert!(-dot(&v, &hv) > 0.0 && -dot(&u, &hu) > 0.0);
+    }
+
+    /// The pseudo-gradient is the minimum-norm subgradient coordinate by coordinate.
+    #[test]
+    fn pseudo_gradient_cases() {
+        let pen = ResolvedPenalty {
+            l1: vec![1.0, 1.0, 1.0, 1.0, 0.0],
+            l2: vec![0.0; 5],
+        };
+        let x = [1.0, -1.0, 0.0, 0.0, 0.0];
+        let gs = [0.5, 0.5, 0.5, -3.0, 0.7];
+        let mut pg = [0.0; 5];
+        pseudo_gradient(&pen, &x, &gs, &mut pg);
+        assert_eq!(pg, [1.5, -0.5, 0.0, -2.0, 0.7]);
+    }
+}
