@@ -29,9 +29,7 @@
 //! gradient at the new iterate for its KKT residual (that gradient is reused as ∇f(y) when
 //! the momentum is zero). [`Solution::inner`] counts gradient evaluations (data passes).
 
-use super::baseline::{
-    curvature_along_gradient, prox, record, start_value_grad, value_grad,
-};
+use super::baseline::{curvature_along_gradient, prox, record, start_value_grad, value_grad};
 use super::{Observer, Run, Solution, Solver, SolverOptions, Status};
 use crate::error::Result;
 use crate::loss::Loss;
