@@ -2,7 +2,7 @@
 //! to the temporary directory, JSON read back from stdout or `--out`.
 //!
 //! Reference values come from outside the project (see tests/data/README.md): the NIST StRD
-//! certified Longley coefficients (quoted from memory), the published Spector–Mazzeo logit
+//! certified Longley coefficients (quoted from memory), the published logit
 //! fit, and the macrodata lasso solutions of a general-purpose conic solver.
 
 mod common;
@@ -316,7 +316,7 @@ fn matrix_market_matches_csv() {
     assert!((number(&dense, "intercept") - number(&sparse, "intercept")).abs() <= 1e-9);
 }
 
-/// Spector–Mazzeo data ("Probit analysis and economic education", J. Economic Education,
+/// The tests/data/spector.csv data ("Probit analysis and economic education", J. Economic Education,
 /// 1980; MLE in tests/data/spector-logit-mle.csv): unpenalised logistic regression with
 /// intercept through the CLI gives the maximum-likelihood estimates to 6 digits and the
 /// objective −loglik/n.
