@@ -2,8 +2,10 @@
 //! to the temporary directory, JSON read back from stdout or `--out`.
 //!
 //! Reference values come from outside the project (see tests/data/README.md): the NIST StRD
-//! certified Longley coefficients (quoted from memory), the published logit
-//! fit, and the macrodata lasso solutions of a general-purpose conic solver.
+//! certified Longley values (quoted from memory), the published logit fit of the spector.csv
+//! data, and the macrodata lasso and precision solutions of a general-purpose conic solver;
+//! plus textbook identities (elastic net as an augmented lasso, the one-output CRF as linear
+//! regression, the CRF with Θ = 0 as the precision problem).
 
 mod common;
 
@@ -316,8 +318,8 @@ fn matrix_market_matches_csv() {
     assert!((number(&dense, "intercept") - number(&sparse, "intercept")).abs() <= 1e-9);
 }
 
-/// The tests/data/spector.csv data ("Probit analysis and economic education", J. Economic Education,
-/// 1980; MLE in tests/data/spector-logit-mle.csv): unpenalised logistic regression with
+/// The tests/data/spector.csv data ("Probit analysis and economic education", J. Economic
+/// Education, 1980; MLE in tests/data/spector-logit-mle.csv): unpenalised logistic regression with
 /// intercept through the CLI gives the maximum-likelihood estimates to 6 digits and the
 /// objective −loglik/n.
 #[test]
