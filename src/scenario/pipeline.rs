@@ -103,13 +103,13 @@ pub struct PipelineConfig {
     pub crf_lambdas: Vec<f64>,
     /// Ratios c with λ_Θ = c·λ_Λ; one warm-started path per ratio.
     pub theta_ratios: Vec<f64>,
-    /// Relative KKT tolerance of every CRF fit (default 1e-5).
+    /// Relative KKT tolerance of every CRF fit (default 1e-4).
     pub crf_tol: f64,
-    /// Outer-iteration limit of every CRF fit (default 200).
+    /// Outer-iteration limit of every CRF fit (default 25).
     pub crf_max_iter: usize,
-    /// Number of λ values on each output's lasso path (default 20).
+    /// Number of λ values on each output's lasso path (default 15).
     pub lasso_lambdas: usize,
-    /// λ_min/λ_max of each output's lasso path (default 1e-3).
+    /// λ_min/λ_max of each output's lasso path (default 1e-4).
     pub lasso_ratio: f64,
     /// Joint scenarios per test day for the energy score and the reserve (default 200).
     pub scenarios: usize,
@@ -127,12 +127,12 @@ impl Default for PipelineConfig {
             scenario: HeatingConfig::default(),
             train_years: 4,
             validation_years: 1,
-            crf_lambdas: vec![0.4, 0.2, 0.1, 0.05, 0.025],
+            crf_lambdas: vec![0.2, 0.1, 0.05],
             theta_ratios: vec![1.0],
-            crf_tol: 1e-5,
-            crf_max_iter: 200,
-            lasso_lambdas: 20,
-            lasso_ratio: 1e-3,
+            crf_tol: 1e-4,
+            crf_max_iter: 25,
+            lasso_lambdas: 15,
+            lasso_ratio: 1e-4,
             scenarios: 200,
             sample_seed: 7,
             fan_substation: 0,
@@ -144,7 +144,7 @@ impl Default for PipelineConfig {
 impl PipelineConfig {
     /// A reduced configuration for tests (a few seconds): 4 substations on 2 trunks, 6
     /// four-hour outputs each (q = 24), 2 weather zones (p = 56), three years (one each for
-    /// training, validation and test), a three-point CRF path, 100 scenarios, no race.
+    /// training, validation and test), a two-point CRF path, 100 scenarios, no race.
     pub fn small() -> Self {
         Self {
             scenario: HeatingConfig {
@@ -157,8 +157,10 @@ impl PipelineConfig {
             },
             train_years: 1,
             validation_years: 1,
-            crf_lambdas: vec![0.2, 0.1, 0.05],
+            crf_lambdas: vec![0.1, 0.05],
             theta_ratios: vec![1.0],
+            crf_tol: 1e-5,
+            crf_max_iter: 200,
             lasso_lambdas: 10,
             scenarios: 100,
             race_budget: None,
@@ -488,7 +490,7 @@ fn lasso_output(train: &Part, val: &Part, k: usize, config: &PipelineConfig) -> 
         n_lambdas: config.lasso_lambdas,
         ratio: Some(config.lasso_ratio),
         solver: NewtonCd::new(SolverOptions {
-            tol: 1e-7,
+            tol: 1e-6,
             ..Default::default()
         }),
         ..Default::default()
