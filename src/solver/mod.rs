@@ -243,11 +243,16 @@ pub fn certify(
 }
 
 /// max(1, ‖∇f(x₀)‖∞) at the loss's default start x₀: the scale of the relative KKT test.
+///
+/// Each gradient entry is taken in the same per-entry convention as the KKT residual
+/// (multiplied by [`Loss::residual_scale`]), so the test compares like with like.
 pub fn gradient_scale(loss: &dyn Loss) -> f64 {
     let x0 = loss.start();
     let mut g = vec![0.0; x0.len()];
     loss.gradient(&x0, &mut g);
-    g.iter().fold(1.0f64, |a, v| a.max(v.abs()))
+    g.iter()
+        .enumerate()
+        .fold(1.0f64, |a, (k, v)| a.max(v.abs() * loss.residual_scale(k)))
 }
 
 /// Shared bookkeeping for one solve: clock, limits, trace, observer, best iterate.
