@@ -772,6 +772,22 @@ fn thread_safety_markers() {
     send_sync::<crf::CrfFit>();
     send_sync::<crf::CrfModel>();
     send_sync::<Box<dyn Solver>>();
+    // Options, records and results users pass around.
+    send_sync::<Status>();
+    send_sync::<SolverOptions>();
+    send_sync::<ellone::solver::TraceRecord>();
+    send_sync::<ellone::solver::newton_cd::CdOptions>();
+    send_sync::<ellone::solver::fista::FistaOptions>();
+    send_sync::<ellone::solver::admm::AdmmOptions>();
+    send_sync::<ellone::solver::owlqn::OwlqnOptions>();
+    send_sync::<ellone::path::PathPoint>();
+    send_sync::<ellone::path::SparseVec>();
+    send_sync::<ellone::precision::Edge>();
+    send_sync::<crf::ColumnMap>();
+    send_sync::<crf::ScenarioScores>();
+    send_sync::<ellone::io::MatrixInput>();
+    send_sync::<ellone::race::RaceOptions>();
+    send_sync::<ellone::race::RaceResult>();
 }
 
 /// Logistic CV folds in parallel give bit-identical results to the same folds run
