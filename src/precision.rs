@@ -614,6 +614,18 @@ pub fn estimate_precision(
             *v *= d[i] * d[j];
         }
     }
+    // A variance at the edge of the floating-point range (subnormal, or ~1e300 after
+    // squaring) can make Θ = 1/S_ii or Σ̂ overflow: report it instead of returning ±Inf.
+    if !(objective.is_finite()
+        && theta.iter().all(|v| v.is_finite())
+        && cov.iter().all(|v| v.is_finite()))
+    {
+        return Err(Error::Numerical(
+            "the estimate overflows double precision (a variance is outside the representable \
+             range); rescale the data"
+                .into(),
+        ));
+    }
     let diag: Vec<f64> = (0..p).map(|i| theta[[i, i]]).collect();
     let partial = Array2::from_shape_fn((p, p), |(i, j)| {
         if i == j {
