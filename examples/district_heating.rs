@@ -8,8 +8,9 @@
 //! covariance, prints a table and writes SVG figures and a JSON report into
 //! `out/district_heating/`. The pipeline itself is `ellone::scenario::pipeline`.
 //!
-//! Options: `--quick` runs the reduced test configuration; `--no-race` skips the solver
-//! race; `--out DIR` changes the output folder.
+//! Options: `--quick` runs the reduced test configuration (no race unless `--race`, which
+//! sets a 3 s budget per solver); `--no-race` skips the solver race; `--out DIR` changes
+//! the output folder.
 //!
 //! Forecasts are decision support: validate them against the operator's own data and
 //! standards before operational use. The data here are synthetic.
@@ -32,16 +33,26 @@ mod app {
     use ellone::scenario::figures::write_figures;
     use ellone::scenario::pipeline::{run_with, PipelineConfig, Progress, Report};
     use indicatif::{ProgressBar, ProgressStyle};
+    use std::io::IsTerminal;
     use std::path::PathBuf;
     use std::time::Instant;
 
-    /// A terminal progress bar per step.
+    /// A terminal progress bar per step (plain lines when stderr is not a terminal).
     struct Bars {
         bar: Option<ProgressBar>,
+        plain: bool,
+        step: String,
+        since: Instant,
     }
 
     impl Progress for Bars {
         fn begin(&mut self, step: &str, total: u64) {
+            self.step = step.to_string();
+            self.since = Instant::now();
+            if self.plain {
+                eprintln!("{step} ...");
+                return;
+            }
             let bar = ProgressBar::new(total);
             if let Ok(style) =
                 ProgressStyle::with_template("{elapsed:>4} [{bar:30}] {pos}/{len} {prefix} {msg}")
@@ -57,6 +68,13 @@ mod app {
             }
         }
         fn end(&mut self) {
+            if self.plain {
+                eprintln!(
+                    "{} done in {:.1} s",
+                    self.step,
+                    self.since.elapsed().as_secs_f64()
+                );
+            }
             if let Some(b) = self.bar.take() {
                 b.finish_with_message("done");
             }
@@ -75,6 +93,9 @@ mod app {
         } else {
             PipelineConfig::default()
         };
+        if args.iter().any(|a| a == "--race") {
+            config.race_budget = Some(std::time::Duration::from_secs(3));
+        }
         if args.iter().any(|a| a == "--no-race") {
             config.race_budget = None;
         }
@@ -90,7 +111,13 @@ mod app {
              and standards before operational use.\n"
         );
         let started = Instant::now();
-        let report = run_with(&config, &mut Bars { bar: None })?;
+        let mut bars = Bars {
+            bar: None,
+            plain: !std::io::stderr().is_terminal(),
+            step: String::new(),
+            since: Instant::now(),
+        };
+        let report = run_with(&config, &mut bars)?;
         print_report(&report);
         let files = write_figures(&report, &out)?;
         let json = out.join("report.json");

@@ -100,7 +100,7 @@ pub fn plot_fan(fan: &Fan, file: &Path, width: u32, height: u32) -> Result<()> {
     let root = SVGBackend::new(file, (width, height)).into_drawing_area();
     root.fill(&WHITE).map_err(|e| io(e.to_string()))?;
     let title = format!(
-        "Substation {}, test day {} (day of year): next-day forecast",
+        "Substation {}, day {} of the test year (largest network peak): forecast",
         fan.substation, fan.day_of_year
     );
     let mut chart = ChartBuilder::on(&root)

@@ -68,7 +68,30 @@
 //!    edge density (the precision of a random guess).
 //! 8. **Solver race** (optional, timing-dependent, so not part of the reproducible numbers):
 //!    Newton coordinate descent against the baseline solvers on the chosen (λ_Λ, λ_Θ)
-//!    problem, from a common start, each with the same small wall-clock budget.
+//!    problem, from a common start (the lasso fit), each with the same small wall-clock
+//!    budget (checked once per outer iteration). The reference objective is the grid fit's
+//!    at the same (λ_Λ, λ_Θ).
+//!
+//! # What the default run shows (measured, and why)
+//!
+//! One run of the default configuration (2 cores shared with other jobs: 886 s wall, 574 s
+//! CPU) gave on the test year: negative log-likelihood per day −164.3 (CRF), −62.3 (lasso,
+//! independent errors), −119.2 (least squares, full covariance), −187.0 (oracle); energy
+//! score 4.38 / 4.14 / 4.26 / 4.10 MW; RMSE 0.316 / 0.299 / 0.308 / 0.296 MW; network-peak
+//! 95 % reserve 3.60 / 1.92 / 2.78 / 2.73 MW with coverage 96.7 / 86.0 / 94.2 / 94.8 %; Λ's
+//! edges: precision 0.097, recall 0.96 against a chance level of 0.0128.
+//!
+//! So the CRF wins clearly on log-likelihood (its sparse Λ estimates the 384×384 error
+//! dependence far better than the 1 350-degree-of-freedom residual covariance) and gives
+//! the best-calibrated reserve, while independent errors provision 30 % too little and
+//! miss the peak on 14 % of days. It does **not** win on the energy score: its mean
+//! forecast is worse (RMSE). Two causes, both visible in the report: (1) the fits stop at
+//! the iteration limit (KKT residual 0.2–1 in scaled units): on this problem the joint
+//! (Λ, Θ) Hessian is badly conditioned (collinear weather blocks times the strongly
+//! correlated error covariance) and Newton coordinate descent crawls; (2) the penalty acts
+//! on Θ = −BΛ, which is denser than the regression matrix B the lasso penalises, and the
+//! validation optimum lies at or below the smallest λ of the grid. The generator was not
+//! changed to make the CRF win.
 
 use std::ops::Range;
 use std::time::{Duration, Instant};
@@ -718,6 +741,7 @@ fn edges_of(a: ArrayView2<f64>) -> Vec<(usize, usize)> {
 /// The chosen CRF: its problem, coordinates and model.
 struct ChosenCrf {
     problem: CrfProblem,
+    x: Vec<f64>,
     model: CrfModel,
 }
 
@@ -786,6 +810,7 @@ fn fit_crf_grid(
                             y_scale: problem.y_scale.clone(),
                             start: problem.start.clone(),
                         },
+                        x: start.clone(),
                         model,
                     },
                 ));
@@ -1013,7 +1038,7 @@ pub fn run_with(config: &PipelineConfig, progress: &mut dyn Progress) -> Result<
 
     let race = match config.race_budget {
         Some(budget) => Some(timed(&mut timings, "solver race", || {
-            run_race(&crf.problem, &grid[chosen], budget, progress)
+            run_race(&crf.problem, &crf.x, &grid[chosen], budget, progress)
         })?),
         None => None,
     };
@@ -1090,10 +1115,12 @@ fn make_fan(
 }
 
 /// The race on the chosen problem: every racer from the lasso start, the same budget,
-/// traces through the observer hook; F_best is the best objective any racer reached (a
-/// high-accuracy reference solve of this problem would take longer than the race).
+/// traces through the observer hook. The reference objective is that of the grid fit at
+/// this (λ_Λ, λ_Θ) (warm-started along the path, more iterations than the race allows);
+/// F_best is the lower of it and the best objective any racer reached.
 fn run_race(
     problem: &CrfProblem,
+    fitted: &[f64],
     point: &CrfGridPoint,
     budget: Duration,
     progress: &mut dyn Progress,
@@ -1166,13 +1193,23 @@ fn run_race(
         progress.advance(1);
     }
     progress.end();
+    // F at the grid fit: f(x) + λ Σ_k factor_k |x_k| (the loss encodes λ_Λ, λ_Θ as factors).
+    let reference = crate::loss::Loss::value(&problem.loss, fitted).map(|f| {
+        f + point.lambda_precision
+            * fitted
+                .iter()
+                .enumerate()
+                .map(|(k, v)| crate::loss::Loss::structural_factor(&problem.loss, k) * v.abs())
+                .sum::<f64>()
+    });
     let best = entries
         .iter()
         .flat_map(|e| e.records.iter().map(|r| r.objective).chain([e.objective]))
+        .chain(reference)
         .fold(f64::INFINITY, f64::min);
     Ok(RaceResult {
         entries,
-        reference: None,
+        reference,
         best_objective: best,
         target: 1e-6,
     })
