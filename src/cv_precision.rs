@@ -133,8 +133,8 @@ impl Loss for PrecisionProblem {
     fn name(&self) -> &str {
         self.loss.name()
     }
-    fn penalty_factor(&self, k: usize) -> f64 {
-        self.loss.penalty_factor(k)
+    fn structural_factor(&self, k: usize) -> f64 {
+        self.loss.structural_factor(k)
     }
     fn residual_scale(&self, k: usize) -> f64 {
         self.loss.residual_scale(k)

@@ -164,7 +164,7 @@ pub fn lambda_max(loss: &dyn Loss, penalty: &Penalty) -> Result<f64> {
 /// (λ_max, the all-zero-penalised solution, its gradient).
 fn null_solution(loss: &dyn Loss, penalty: &Penalty) -> Result<(f64, Vec<f64>, Vec<f64>)> {
     let m = loss.dim();
-    let unit = ResolvedPenalty::new(&penalty.with_lambda(1.0)?, m, |k| loss.penalty_factor(k))?;
+    let unit = ResolvedPenalty::new(&penalty.with_lambda(1.0)?, m, |k| loss.structural_factor(k))?;
     let mut x = loss.start();
     for (k, xk) in x.iter_mut().enumerate() {
         if unit.l1[k] > 0.0 {
@@ -266,7 +266,7 @@ pub fn fit_path(
     };
     let scale = gradient_scale(loss);
     let tol_abs = opts.solver.options.tol * scale;
-    let unit = ResolvedPenalty::new(&penalty.with_lambda(1.0)?, m, |k| loss.penalty_factor(k))?;
+    let unit = ResolvedPenalty::new(&penalty.with_lambda(1.0)?, m, |k| loss.structural_factor(k))?;
     let mut x = x0;
     let mut g = g0;
     let mut prev_lambda = lmax.max(lambdas[0]);
@@ -275,7 +275,7 @@ pub fn fit_path(
     for &lambda in &lambdas {
         let t = Instant::now();
         let pen_l = penalty.with_lambda(lambda)?;
-        let resolved = ResolvedPenalty::new(&pen_l, m, |k| loss.penalty_factor(k))?;
+        let resolved = ResolvedPenalty::new(&pen_l, m, |k| loss.structural_factor(k))?;
         // Strong set: non-zeros, unpenalised, and coordinates passing the sequential rule,
         // less the coordinates the loss proves zero (an exact rule; see Loss::provably_zero).
         let cut = 2.0 * lambda - prev_lambda;

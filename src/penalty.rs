@@ -8,7 +8,7 @@
 //!
 //! where λ ≥ 0 is the regularisation strength, w_k ≥ 0 are user weights (default 1, 0 means
 //! unpenalised) and c_k ≥ 0 is a structural factor supplied by the loss
-//! ([`Loss::penalty_factor`](crate::loss::Loss::penalty_factor)): 0 for an intercept or an
+//! ([`Loss::structural_factor`](crate::loss::Loss::structural_factor)): 0 for an intercept or an
 //! unpenalised diagonal, 2 for an off-diagonal entry of a symmetric matrix stored once.
 //! The ℓ2 term applies to every coordinate the loss calls penalisable (c_k > 0).
 

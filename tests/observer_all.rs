@@ -168,7 +168,7 @@ fn check_stopped(
         assert_eq!(r.iteration, i, "{tag}: observer records out of order");
     }
     assert!(sol.x.iter().all(|v| v.is_finite()), "{tag}: non-finite x");
-    let resolved = ResolvedPenalty::new(pen, loss.dim(), |j| loss.penalty_factor(j)).unwrap();
+    let resolved = ResolvedPenalty::new(pen, loss.dim(), |j| loss.structural_factor(j)).unwrap();
     let (f, kkt, _) = certify(loss, &resolved, &sol.x).expect("iterate inside the domain");
     let tol = 1e-9 * f.abs().max(1.0);
     assert!(
@@ -259,7 +259,7 @@ fn time_limit_honoured_within_one_outer_iteration() {
             assert!(sol.iterations <= 1, "{tag}: {} iterations", sol.iterations);
             assert!(seen.len() <= 2, "{tag}");
             let resolved =
-                ResolvedPenalty::new(pen, loss.dim(), |j| loss.penalty_factor(j)).unwrap();
+                ResolvedPenalty::new(pen, loss.dim(), |j| loss.structural_factor(j)).unwrap();
             let (f, _, _) = certify(loss, &resolved, &sol.x).expect("valid iterate");
             assert!(
                 (f - sol.objective).abs() <= 1e-9 * f.abs().max(1.0),

@@ -75,7 +75,7 @@ fn check_path(loss: &dyn Loss, shape: (usize, usize), n_lambdas: usize) {
         .x
         .indices
         .iter()
-        .all(|&k| loss.penalty_factor(k) == 0.0));
+        .all(|&k| loss.structural_factor(k) == 0.0));
 }
 
 /// Macrodata lasso (tests/data): path points satisfy KKT and match cold starts.
@@ -140,7 +140,7 @@ fn precision_path_matches_reference_objectives() {
             .x
             .indices
             .iter()
-            .filter(|&&k| loss.penalty_factor(k) != 0.0)
+            .filter(|&&k| loss.structural_factor(k) != 0.0)
             .count();
         assert_eq!(offdiag_nnz as f64, field(row, 4), "λ={}", point.lambda);
     }
@@ -151,7 +151,7 @@ fn precision_path_matches_reference_objectives() {
     assert!(path.points[0].screened > 0);
     // The mask is exactly the pairs split between blocks, and the solution is zero there.
     let resolved = ellone::penalty::ResolvedPenalty::new(&Penalty::l1(0.4).unwrap(), 78, |k| {
-        loss.penalty_factor(k)
+        loss.structural_factor(k)
     })
     .unwrap();
     let mask = loss.provably_zero(&resolved).unwrap();

@@ -103,7 +103,7 @@ fn check_solution(loss: &dyn Loss, pen: &Penalty, tol: f64, sol: &Solution) {
     assert!(sol.objective.is_finite(), "objective {}", sol.objective);
     assert!(sol.x.iter().all(|v| v.is_finite()), "non-finite iterate");
     assert!(sol.kkt_residual.is_finite() && sol.kkt_residual >= 0.0);
-    let resolved = ResolvedPenalty::new(pen, loss.dim(), |k| loss.penalty_factor(k)).unwrap();
+    let resolved = ResolvedPenalty::new(pen, loss.dim(), |k| loss.structural_factor(k)).unwrap();
     let (f, kkt, _) = certify(loss, &resolved, &sol.x).expect("returned point in the domain");
     assert!(
         (f - sol.objective).abs() <= 1e-8 * f.abs().max(1.0),

@@ -22,7 +22,7 @@
 //! Σ_{i≠j}|Λ_ij|) with residual scale ½ (the KKT residual is reported per matrix entry).
 //!
 //! **The two penalty levels.** The driver's [`crate::Penalty`] has one λ; this loss encodes
-//! λ_Λ and λ_Θ in its structural [`Loss::penalty_factor`]s (0 on the diagonal of Λ, 2λ_Λ
+//! λ_Λ and λ_Θ in its structural [`Loss::structural_factor`]s (0 on the diagonal of Λ, 2λ_Λ
 //! off it, λ_Θ on Θ), so the DESIGN.md objective is solved with `Penalty::l1(1.0)`. That
 //! keeps λ_Λ = 0 or λ_Θ = 0 exact (no ratio of the two is ever formed). A caller may
 //! still pass another λ (it scales both) or weights.
@@ -167,7 +167,7 @@ impl CrfLoss {
             f + x
                 .iter()
                 .enumerate()
-                .map(|(k, v)| self.penalty_factor(k) * v.abs())
+                .map(|(k, v)| self.structural_factor(k) * v.abs())
                 .sum::<f64>()
         }))
     }
@@ -345,7 +345,7 @@ impl Loss for CrfLoss {
             .for_each(|(o, h)| *o = *h);
     }
 
-    fn penalty_factor(&self, k: usize) -> f64 {
+    fn structural_factor(&self, k: usize) -> f64 {
         if k < self.nl {
             let (a, b) = self.pairs[k];
             if a == b {

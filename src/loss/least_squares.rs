@@ -127,7 +127,7 @@ impl Loss for LeastSquares {
         })
     }
 
-    fn penalty_factor(&self, k: usize) -> f64 {
+    fn structural_factor(&self, k: usize) -> f64 {
         if self.data.is_intercept(k) {
             0.0
         } else {

@@ -161,7 +161,7 @@ impl Loss for Logistic {
         out.iter_mut().for_each(|o| *o /= n);
     }
 
-    fn penalty_factor(&self, k: usize) -> f64 {
+    fn structural_factor(&self, k: usize) -> f64 {
         if self.data.is_intercept(k) {
             0.0
         } else {

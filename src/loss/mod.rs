@@ -47,7 +47,7 @@ pub trait Loss: Send + Sync {
     /// Structural factor c_k of the penalty on coordinate k: λ_k = λ·w_k·c_k. Default 1.
     /// Return 0 for coordinates that are never penalised (an intercept), 2 for an
     /// off-diagonal entry of a symmetric matrix stored once (it appears twice in Σ_{i≠j}).
-    fn penalty_factor(&self, _k: usize) -> f64 {
+    fn structural_factor(&self, _k: usize) -> f64 {
         1.0
     }
 

@@ -14,7 +14,7 @@
 //!   W_ii² on it, and (Hd)_k = tr(E_k WDW) = 2(WDW)_ij (or (WDW)_ii).
 //!
 //! The penalty λ Σ_{i≠j} w_ij|Θ_ij| counts each off-diagonal pair twice, hence
-//! [`Loss::penalty_factor`] 2 there; the KKT residual is reported per matrix entry (the
+//! [`Loss::structural_factor`] 2 there; the KKT residual is reported per matrix entry (the
 //! gradient of the matrix function is S − W), hence [`Loss::residual_scale`] ½ there. The
 //! diagonal is unpenalised (factor 0) unless asked for (factor 1).
 //!
@@ -539,7 +539,7 @@ impl Loss for LogDet {
         })
     }
 
-    fn penalty_factor(&self, k: usize) -> f64 {
+    fn structural_factor(&self, k: usize) -> f64 {
         match self.pairs.get(k) {
             Some(&(i, j)) if i != j => 2.0,
             _ if self.penalize_diagonal => 1.0,

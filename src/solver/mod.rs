@@ -295,7 +295,7 @@ impl<'o> Run<'o> {
     ) -> Result<(Self, ResolvedPenalty, Vec<f64>)> {
         opts.validate()?;
         let m = loss.dim();
-        let pen = ResolvedPenalty::new(penalty, m, |k| loss.penalty_factor(k))?;
+        let pen = ResolvedPenalty::new(penalty, m, |k| loss.structural_factor(k))?;
         let x0 = loss.start();
         let x = match start {
             Some(s) => {

@@ -175,8 +175,8 @@ impl Problem {
     /// for precision the off-diagonal entries.
     fn plotted(&self, k: usize) -> bool {
         match self {
-            Problem::Precision(l) => l.penalty_factor(k) != 0.0,
-            Problem::Crf(l) => l.penalty_factor(k) != 0.0,
+            Problem::Precision(l) => l.structural_factor(k) != 0.0,
+            Problem::Crf(l) => l.structural_factor(k) != 0.0,
             _ => k < self.features(),
         }
     }
