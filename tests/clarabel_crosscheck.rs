@@ -4,8 +4,8 @@
 //! optimal objective must agree to 1e-6 relative, and the conic solver's point must not beat
 //! ours.
 //!
-//! Formulations (standard conic modelling, e.g. "Convex Optimization", University
-//! Press, 2004, §4.4 and §4.6):
+//! Formulations (standard conic modelling, e.g. the textbook "Convex Optimization", 2004,
+//! §4.4 and §4.6):
 //!
 //! * lasso as a QP: variables (b, b₀, r, t), minimise (1/(2n))‖r‖² + (λ₂/2)‖b‖² + λΣ w_j t_j
 //!   subject to r = y − Xb − b₀ and −t ≤ b ≤ t;
