@@ -74,8 +74,9 @@
 //!
 //! # What the default run shows (measured, and why)
 //!
-//! One run of the default configuration (2 cores shared with other jobs: 886 s wall, 574 s
-//! CPU) gave on the test year: negative log-likelihood per day −164.3 (CRF), −62.3 (lasso,
+//! Two runs of the default configuration gave identical numbers (2 cores shared with other
+//! jobs: 886 s and 472 s wall, 574 s and 505 s CPU; the CRF path is about 75 % of it). On
+//! the test year: negative log-likelihood per day −164.3 (CRF), −62.3 (lasso,
 //! independent errors), −119.2 (least squares, full covariance), −187.0 (oracle); energy
 //! score 4.38 / 4.14 / 4.26 / 4.10 MW; RMSE 0.316 / 0.299 / 0.308 / 0.296 MW; network-peak
 //! 95 % reserve 3.60 / 1.92 / 2.78 / 2.73 MW with coverage 96.7 / 86.0 / 94.2 / 94.8 %; Λ's
@@ -91,7 +92,9 @@
 //! correlated error covariance) and Newton coordinate descent crawls; (2) the penalty acts
 //! on Θ = −BΛ, which is denser than the regression matrix B the lasso penalises, and the
 //! validation optimum lies at or below the smallest λ of the grid. The generator was not
-//! changed to make the CRF win.
+//! changed to make the CRF win. The race at this size is short for its problem (one
+//! Newton iteration on 116 000 coordinates takes several seconds), so its figure shows
+//! the first seconds of every method only.
 
 use std::ops::Range;
 use std::time::{Duration, Instant};
