@@ -20,8 +20,8 @@ use super::local::CrfLocal;
 use super::loss::CrfLoss;
 use crate::error::Result;
 use crate::loss::{LocalModel, Loss};
-use crate::penalty::{soft_threshold, Penalty, ResolvedPenalty};
-use crate::solver::newton_cd::CdOptions;
+use crate::penalty::{Penalty, ResolvedPenalty};
+use crate::solver::newton_cd::{coordinate_sweeps, CdOptions};
 use crate::solver::{Observer, Run, Solution, SolverOptions, Status, TraceRecord};
 
 /// The alternating Θ-step / Λ-step solver (see the module docs).
@@ -32,42 +32,6 @@ pub struct Alternating {
     /// Inner-loop tuning (sweeps, forcing, Armijo constants; the subspace Newton step is
     /// not used).
     pub cd: CdOptions,
-}
-
-/// Coordinate-descent sweeps over `free` on the penalised quadratic model; returns the
-/// number of sweeps.
-fn sweeps(
-    model: &mut dyn LocalModel,
-    pen: &ResolvedPenalty,
-    g: &[f64],
-    free: &[usize],
-    target: &mut [f64],
-    threshold: f64,
-    max_sweeps: usize,
-) -> usize {
-    let mut count = 0;
-    for _ in 0..max_sweeps.max(1) {
-        let mut biggest = 0.0f64;
-        for &k in free {
-            let a = model.curvature(k) + pen.l2[k];
-            if !(a > 0.0 && a.is_finite()) {
-                continue;
-            }
-            let c = target[k];
-            let b = g[k] + pen.l2[k] * c + model.hd(k);
-            let z = soft_threshold(c - b / a, pen.l1[k] / a);
-            if z != c {
-                model.step(k, z - c);
-                target[k] = z;
-                biggest = biggest.max(a * (z - c).abs());
-            }
-        }
-        count += 1;
-        if biggest <= threshold {
-            break;
-        }
-    }
-    count
 }
 
 /// Armijo backtracking along target − x over `free`; updates x and returns whether a step
@@ -193,7 +157,7 @@ impl Alternating {
             for &k in &free {
                 target[k] = x[k];
             }
-            inner += sweeps(
+            inner += coordinate_sweeps(
                 &mut model,
                 &pen,
                 &g,
@@ -201,7 +165,8 @@ impl Alternating {
                 &mut target,
                 threshold,
                 self.cd.max_inner_sweeps,
-            );
+            )
+            .0;
             let moved_theta = line_search(&mut model, &pen, &self.cd, &g, &free, &target, &mut x);
             drop(model);
             // Λ-step: one log-det Newton step for fixed Θ.
@@ -211,7 +176,7 @@ impl Alternating {
             for &k in &free {
                 target[k] = x[k];
             }
-            inner += sweeps(
+            inner += coordinate_sweeps(
                 &mut model,
                 &pen,
                 &g,
@@ -219,7 +184,8 @@ impl Alternating {
                 &mut target,
                 threshold,
                 self.cd.max_inner_sweeps,
-            );
+            )
+            .0;
             let moved_lambda = line_search(&mut model, &pen, &self.cd, &g, &free, &target, &mut x);
             iteration += 1;
             if !moved_theta && !moved_lambda {

@@ -227,30 +227,16 @@ impl NewtonCd {
             }
 
             // 3. Inner coordinate-descent sweeps.
-            let threshold = self.cd.forcing * kkt;
-            let mut settled = false;
-            for _ in 0..self.cd.max_inner_sweeps.max(1) {
-                let mut biggest = 0.0f64;
-                for &k in &free {
-                    let a = model.curvature(k) + pen.l2[k];
-                    if !(a > 0.0 && a.is_finite()) {
-                        continue;
-                    }
-                    let c = target[k];
-                    let b = g[k] + pen.l2[k] * c + model.hd(k);
-                    let z = soft_threshold(c - b / a, pen.l1[k] / a);
-                    if z != c {
-                        model.step(k, z - c);
-                        target[k] = z;
-                        biggest = biggest.max(a * (z - c).abs());
-                    }
-                }
-                inner_total += 1;
-                if biggest <= threshold {
-                    settled = true;
-                    break;
-                }
-            }
+            let (sweeps, settled) = coordinate_sweeps(
+                model.as_mut(),
+                &pen,
+                &g,
+                &free,
+                &mut target,
+                self.cd.forcing * kkt,
+                self.cd.max_inner_sweeps,
+            );
+            inner_total += sweeps;
 
             // 4. Subspace Newton step when the sweeps stalled.
             if !settled && self.cd.newton_block_max > 0 {
@@ -347,6 +333,45 @@ impl NewtonCd {
             inner_total,
         )
     }
+}
+
+/// Cyclic coordinate descent over `free` on the penalised quadratic model
+/// `q(d) = gᵀd + ½dᵀHd + Σ_k λ_k|x_k + d_k|` (ℓ2 term included), with `target = x + d`
+/// updated in place: for a = H_kk, b = g_k + (Hd)_k, c = x_k + d_k the new value is
+/// `S(c − b/a, λ_k/a)`. Stops after a sweep whose largest scaled change a·|Δ| is at most
+/// `threshold`, or after `max_sweeps`. Returns (sweeps done, whether the threshold was met).
+pub(crate) fn coordinate_sweeps(
+    model: &mut dyn LocalModel,
+    pen: &ResolvedPenalty,
+    g: &[f64],
+    free: &[usize],
+    target: &mut [f64],
+    threshold: f64,
+    max_sweeps: usize,
+) -> (usize, bool) {
+    let mut count = 0;
+    for _ in 0..max_sweeps.max(1) {
+        let mut biggest = 0.0f64;
+        for &k in free {
+            let a = model.curvature(k) + pen.l2[k];
+            if !(a > 0.0 && a.is_finite()) {
+                continue;
+            }
+            let c = target[k];
+            let b = g[k] + pen.l2[k] * c + model.hd(k);
+            let z = soft_threshold(c - b / a, pen.l1[k] / a);
+            if z != c {
+                model.step(k, z - c);
+                target[k] = z;
+                biggest = biggest.max(a * (z - c).abs());
+            }
+        }
+        count += 1;
+        if biggest <= threshold {
+            return (count, true);
+        }
+    }
+    (count, false)
 }
 
 /// Replaces the coordinate-descent direction by the reduced Newton direction on the active
