@@ -20,7 +20,7 @@ use crate::cv::CrossValidate;
 use crate::error::{Error, Result};
 use crate::linalg;
 use crate::loss::precision::LogDet;
-use crate::loss::{LocalModel, Loss, LossStructure};
+use crate::loss::Loss;
 use crate::penalty::ResolvedPenalty;
 use crate::precision::{sample_covariance, screening_blocks};
 use ndarray::{Array2, ArrayView2};
@@ -118,49 +118,7 @@ impl PrecisionProblem {
 }
 
 impl Loss for PrecisionProblem {
-    fn dim(&self) -> usize {
-        self.loss.dim()
-    }
-    fn value(&self, x: &[f64]) -> Option<f64> {
-        self.loss.value(x)
-    }
-    fn gradient(&self, x: &[f64], g: &mut [f64]) {
-        self.loss.gradient(x, g)
-    }
-    fn hess_vec(&self, x: &[f64], v: &[f64], out: &mut [f64]) {
-        self.loss.hess_vec(x, v, out)
-    }
-    fn name(&self) -> &str {
-        self.loss.name()
-    }
-    fn structural_factor(&self, k: usize) -> f64 {
-        self.loss.structural_factor(k)
-    }
-    fn residual_scale(&self, k: usize) -> f64 {
-        self.loss.residual_scale(k)
-    }
-    fn start(&self) -> Vec<f64> {
-        self.loss.start()
-    }
-    fn duality_gap(&self, x: &[f64], penalty: &ResolvedPenalty) -> Option<f64> {
-        self.loss.duality_gap(x, penalty)
-    }
-    fn lambda_max(&self, penalty: &ResolvedPenalty) -> Option<f64> {
-        self.loss.lambda_max(penalty)
-    }
-    fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
-        self.loss.local_model(x)
-    }
-    fn structure(&self) -> Option<LossStructure<'_>> {
-        self.loss.structure()
-    }
-    fn local_model_subset<'a>(
-        &'a self,
-        x: &[f64],
-        subset: &[usize],
-    ) -> Result<Box<dyn LocalModel + 'a>> {
-        self.loss.local_model_subset(x, subset)
-    }
+    crate::loss::forward_loss_methods!(loss);
 
     /// Entries (i, j), i < j, between two connected components of {|S_ij| > λ_ij}, with
     /// λ_ij = l1_k / 2 (the penalty of coordinate k counts the pair twice).

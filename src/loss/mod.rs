@@ -171,3 +171,62 @@ pub mod precision;
 
 pub use least_squares::LeastSquares;
 pub use logistic::Logistic;
+
+/// Inside `impl Loss for Wrapper`, forwards every [`Loss`] method except
+/// [`Loss::provably_zero`] to the field `$field` (a wrapper that adds data around a loss,
+/// e.g. for cross-validation, then overrides only what it changes).
+macro_rules! forward_loss_methods {
+    ($field:ident) => {
+        fn dim(&self) -> usize {
+            self.$field.dim()
+        }
+        fn value(&self, x: &[f64]) -> Option<f64> {
+            self.$field.value(x)
+        }
+        fn gradient(&self, x: &[f64], g: &mut [f64]) {
+            self.$field.gradient(x, g)
+        }
+        fn hess_vec(&self, x: &[f64], v: &[f64], out: &mut [f64]) {
+            self.$field.hess_vec(x, v, out)
+        }
+        fn name(&self) -> &str {
+            self.$field.name()
+        }
+        fn structural_factor(&self, k: usize) -> f64 {
+            self.$field.structural_factor(k)
+        }
+        fn residual_scale(&self, k: usize) -> f64 {
+            self.$field.residual_scale(k)
+        }
+        fn start(&self) -> Vec<f64> {
+            self.$field.start()
+        }
+        fn duality_gap(
+            &self,
+            x: &[f64],
+            penalty: &$crate::penalty::ResolvedPenalty,
+        ) -> Option<f64> {
+            self.$field.duality_gap(x, penalty)
+        }
+        fn lambda_max(&self, penalty: &$crate::penalty::ResolvedPenalty) -> Option<f64> {
+            self.$field.lambda_max(penalty)
+        }
+        fn local_model<'a>(
+            &'a self,
+            x: &[f64],
+        ) -> $crate::Result<Box<dyn $crate::loss::LocalModel + 'a>> {
+            self.$field.local_model(x)
+        }
+        fn structure(&self) -> Option<$crate::loss::LossStructure<'_>> {
+            self.$field.structure()
+        }
+        fn local_model_subset<'a>(
+            &'a self,
+            x: &[f64],
+            subset: &[usize],
+        ) -> $crate::Result<Box<dyn $crate::loss::LocalModel + 'a>> {
+            self.$field.local_model_subset(x, subset)
+        }
+    };
+}
+pub(crate) use forward_loss_methods;
