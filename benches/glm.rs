@@ -9,6 +9,10 @@
 //! iteration plus two column operations per free coordinate per sweep, the free set
 //! approximated from below by the non-zeros).
 //!
+//! `ELLONE_GLM_ONLY=<text>` prints the report only for the problems whose "kind name"
+//! contains the text (e.g. "logistic sparse") and skips criterion's timings;
+//! `ELLONE_GLM_PROFILE=1` prints the per-iteration profile of the sparse logistic problem.
+//!
 //! The data are synthetic (demo data): Gaussian (dense) or uniform (sparse) entries, a
 //! sparse true coefficient vector, Gaussian noise or Bernoulli labels.
 
@@ -207,8 +211,16 @@ fn report() {
         let lg = Logistic::new(data.design.clone(), data.labels.clone(), true).unwrap();
         let lam_ls = 0.1 * lambda_max(&data.design, &data.y);
         let lam_lg = 0.1 * lambda_max(&data.design, &data.labels);
-        report_one(data, &ls, "least squares", 30.0, lam_ls);
-        report_one(data, &lg, "logistic", 60.0, lam_lg);
+        // ELLONE_GLM_ONLY=<substring>: report only the problems whose "kind name" matches.
+        let only = std::env::var("ELLONE_GLM_ONLY").unwrap_or_default();
+        for (loss, kind, target, lambda) in [
+            (&ls as &dyn Loss, "least squares", 30.0, lam_ls),
+            (&lg, "logistic", 60.0, lam_lg),
+        ] {
+            if format!("{kind} {}", data.name).contains(&only) {
+                report_one(data, loss, kind, target, lambda);
+            }
+        }
     }
     println!();
 }
@@ -244,6 +256,9 @@ fn main() {
         return;
     }
     report();
+    if std::env::var_os("ELLONE_GLM_ONLY").is_some() {
+        return; // a quick ratio report without criterion's timings
+    }
     benches();
     Criterion::default().configure_from_args().final_summary();
 }
