@@ -194,6 +194,36 @@ pub fn sample_covariance(x: ArrayView2<f64>, centre: bool) -> Result<Array2<f64>
     Ok(s)
 }
 
+/// Relative shift δ/max_i S_ii of the semidefiniteness test in [`check_semidefinite`]: far
+/// above the rounding error of a sample covariance (about p·ε·max S_ii), far below any
+/// eigenvalue that matters statistically.
+const SEMIDEFINITE_SHIFT: f64 = 1e-8;
+
+/// Checks that a covariance matrix is positive semidefinite, as every covariance is: the
+/// Cholesky factorisation of S + δI must exist, δ = 1e-8·max_i S_ii. A matrix with an
+/// eigenvalue below −δ fails it. (With an indefinite S the log-det problem can be
+/// unbounded below: along an eigenvector v of a negative eigenvalue μ, tr(SΘ) falls like
+/// t·μ while −log det Θ grows only like −log t.) One Cholesky factorisation, O(p³/3).
+///
+/// # Errors
+/// As [`validate_covariance`]; [`Error::NotPositiveDefinite`] when the test fails.
+pub fn check_semidefinite(s: ArrayView2<f64>) -> Result<()> {
+    let s = validate_covariance(s, "covariance")?;
+    let p = s.nrows();
+    let top = (0..p).map(|i| s[[i, i]]).fold(0.0f64, f64::max);
+    let shift = SEMIDEFINITE_SHIFT * top.max(f64::MIN_POSITIVE);
+    let mut m = s;
+    for i in 0..p {
+        m[[i, i]] += shift;
+    }
+    if linalg::cholesky(m.view()).is_none() {
+        return Err(Error::NotPositiveDefinite(format!(
+            "covariance: not positive semidefinite (S + δI has no Cholesky factor,              δ = {shift:.3e}); a sample covariance never is indefinite"
+        )));
+    }
+    Ok(())
+}
+
 /// λ_max = max_{i≠j, w_ij>0} |S_ij|/w_ij: for λ ≥ λ_max (and an unpenalised diagonal) the
 /// solution is diag(1/S_ii). 0 for p = 1.
 ///
@@ -461,7 +491,8 @@ fn solve_block(pr: &Problem<'_>, idx: &[usize]) -> Result<BlockFit> {
 /// # Errors
 /// Bad input as typed errors: [`Error::Empty`], [`Error::ShapeMismatch`] (non-square S,
 /// weights or warm start of the wrong shape), [`Error::NonFinite`], [`Error::NotSymmetric`],
-/// [`Error::NotPositiveDefinite`] (negative diagonal), [`Error::InvalidLambda`] (λ or a
+/// [`Error::NotPositiveDefinite`] (a covariance that is not positive semidefinite, see
+/// [`check_semidefinite`]), [`Error::InvalidLambda`] (λ or a
 /// weight negative or not finite), [`Error::InvalidArgument`] (a warm start that is not
 /// positive definite, bad solver options, a zero-variance variable with `standardise`);
 /// [`Error::Unbounded`] when the problem has no minimiser (λ = 0 with a singular S, or a
@@ -475,7 +506,10 @@ pub fn estimate_precision(
     check_lambda("lambda", lambda)?;
     options.solver.validate()?;
     let s_raw = match input {
-        PrecisionInput::Covariance(s) => validate_covariance(s, "covariance")?,
+        PrecisionInput::Covariance(s) => {
+            check_semidefinite(s)?;
+            validate_covariance(s, "covariance")?
+        }
         PrecisionInput::Data(x) => {
             validate_covariance(sample_covariance(x, options.centre)?.view(), "covariance")?
         }

@@ -588,7 +588,24 @@ fn inconsistent_inputs_fail() {
     let zero_col = TempFile::with_text("zx.csv", "1,0\n3,0\n5,0\n");
     let y2 = TempFile::with_text("y2.csv", "1\n0\n");
     let y3 = TempFile::with_text("y3.csv", "1\n0\n2\n");
+    // Eigenvalues 3 and −1 (closed form): not a covariance matrix.
+    let indefinite = TempFile::with_text("cov.csv", "1,2\n2,1\n");
     let cases: Vec<(Vec<&str>, String)> = vec![
+        (
+            vec!["--loss", "precision", "--cov", indefinite.arg()],
+            "not positive semidefinite".to_string(),
+        ),
+        (
+            vec![
+                "--loss",
+                "precision",
+                "--cov",
+                indefinite.arg(),
+                "--solver",
+                "fista",
+            ],
+            indefinite.arg().to_string(),
+        ),
         (
             vec!["--loss", "least-squares", "--x", x.arg(), "--y", y2.arg()],
             y2.arg().to_string(),

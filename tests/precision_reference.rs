@@ -276,6 +276,21 @@ fn bad_input_is_rejected_with_typed_errors() {
         est(&neg, 0.1, &d),
         Err(Error::NotPositiveDefinite(_))
     ));
+    // Indefinite "covariance": [[1, 2], [2, 1]] has eigenvalues 3 and −1 (closed form), and
+    // no covariance matrix has a negative eigenvalue (textbook: vᵀSv is a variance).
+    let indefinite = ndarray::array![[1.0, 2.0], [2.0, 1.0]];
+    for lambda in [0.0, 0.1, 1.0] {
+        assert!(matches!(
+            est(&indefinite, lambda, &d),
+            Err(Error::NotPositiveDefinite(_))
+        ));
+    }
+    // A singular but semidefinite covariance (rank 1: S = vvᵀ) passes the check; with its
+    // variables split by λ > |S_12| it is solved in closed form, Θ = diag(1/S_ii).
+    let singular = ndarray::array![[1.0, 0.5], [0.5, 0.25]];
+    ellone::precision::check_semidefinite(singular.view()).expect("semidefinite");
+    let fit = est(&singular, 0.6, &d).expect("solvable");
+    assert!((fit.precision[[0, 0]] - 1.0).abs() < 1e-12 && fit.precision[[0, 1]] == 0.0);
     let rect = s.slice(s![.., ..11]).to_owned();
     assert!(matches!(
         est(&rect, 0.1, &d),

@@ -157,6 +157,7 @@ fn problem(args: &Args) -> CliResult<(Box<dyn Loss>, Penalty)> {
             let ctx = |e: ellone::Error| CliError::from(e).context(option_file(option, &path));
             let matrix = input::dense_matrix(&path)?;
             let s = if args.cov.is_some() {
+                ellone::precision::check_semidefinite(matrix.view()).map_err(ctx)?;
                 matrix
             } else {
                 sample_covariance(matrix.view(), args.center).map_err(ctx)?

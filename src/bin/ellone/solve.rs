@@ -341,6 +341,7 @@ fn solve_precision(args: &Args, options: SolverOptions) -> CliResult<Report> {
     let matrix = input::dense_matrix(path)?;
     let context = |e: ellone::Error| CliError::from(e).context(option_file(option, path));
     let s = if args.cov.is_some() {
+        ellone::precision::check_semidefinite(matrix.view()).map_err(context)?;
         matrix
     } else {
         sample_covariance(matrix.view(), args.center).map_err(context)?
