@@ -20,11 +20,15 @@
 //!   same log-det loss (no block screening); precision-ar1: p = 1000 variables of an AR(1)
 //!   process with coefficient 0.9, n = 1200, λ = 0.1 (ill-conditioned, denser estimate);
 //! * Gaussian CRF: p = 40 inputs, q = 45 outputs (Λ: 1035 coordinates, Θ: 1800), n = 400,
-//!   sparse true Λ (chain) and Θ (each output driven by 2 inputs), λ_Λ = λ_Θ = 0.05.
+//!   sparse true Λ (chain, off-diagonal −0.5 against a diagonal of 1.5) and Θ (each output
+//!   driven by 2 inputs), λ_Λ = λ_Θ = 0.05; crf-correlated: p = 150 inputs with AR(1)
+//!   correlation 0.8 between neighbours (like hourly weather), q = 80 outputs (Λ: 3240
+//!   coordinates, Θ: 12 000), n = 1000, chain off-diagonal −0.7 (strongly correlated
+//!   errors, as in multi-site forecasts).
 //!
 //! Environment: `ELLONE_BENCH_LOSSES` (comma-separated subset of
 //! "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,
-//! precision,precision-dense,precision-ar1,crf"; default all), `ELLONE_BENCH_BUDGET` (seconds per
+//! precision,precision-dense,precision-ar1,crf,crf-correlated"; default all), `ELLONE_BENCH_BUDGET` (seconds per
 //! solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
 //! target/bench-baselines), `ELLONE_BENCH_SOLVERS` (baselines to run besides Newton-CD,
 //! default "fista,admm,owl-qn").
@@ -170,15 +174,28 @@ fn precision_ar1_problem() -> (Box<dyn Loss>, Penalty) {
     (Box::new(loss), Penalty::l1(0.1).expect("valid λ"))
 }
 
-fn crf_problem() -> (Box<dyn Loss>, Penalty) {
-    let mut rng = StdRng::seed_from_u64(45);
-    let (n, p, q) = (400, 40, 45);
-    let x = normal_matrix(&mut rng, n, p);
-    // Outputs: y = −Λ⁻¹Θᵀx + noise with covariance Λ⁻¹, Λ a chain, Θ two inputs per output.
+/// A Gaussian CRF with n samples, p inputs (AR(1) correlation `input_corr` between
+/// neighbouring inputs) and q outputs: y = −Λ⁻¹Θᵀx + noise with covariance Λ⁻¹, Λ a chain
+/// with diagonal 1.5 and off-diagonal −`coupling` (strongly correlated errors as `coupling`
+/// approaches 0.75), Θ two inputs per output; λ_Λ = λ_Θ = 0.05.
+fn crf_problem(
+    seed: u64,
+    (n, p, q): (usize, usize, usize),
+    input_corr: f64,
+    coupling: f64,
+) -> (Box<dyn Loss>, Penalty) {
+    let mut rng = StdRng::seed_from_u64(seed);
+    let mut x = normal_matrix(&mut rng, n, p);
+    let keep = (1.0 - input_corr * input_corr).sqrt();
+    for j in 1..p {
+        for i in 0..n {
+            x[[i, j]] = input_corr * x[[i, j - 1]] + keep * x[[i, j]];
+        }
+    }
     let mut lam = Array2::<f64>::eye(q) * 1.5;
     for i in 0..q - 1 {
-        lam[[i, i + 1]] = -0.5;
-        lam[[i + 1, i]] = -0.5;
+        lam[[i, i + 1]] = -coupling;
+        lam[[i + 1, i]] = -coupling;
     }
     let mut th = Array2::<f64>::zeros((p, q));
     for k in 0..q {
@@ -270,8 +287,8 @@ fn report(name: &str, result: &RaceResult, budget: f64) {
 fn main() {
     // `cargo bench` passes `--bench`; nothing else to parse.
     let losses = std::env::var("ELLONE_BENCH_LOSSES").unwrap_or_else(|_| {
-        "logistic,logistic-correlated,least-squares,least-squares-correlated,precision,\
-             precision-dense,crf"
+        "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,\
+             precision,precision-dense,precision-ar1,crf,crf-correlated"
             .into()
     });
     let budget: f64 = std::env::var("ELLONE_BENCH_BUDGET")
@@ -298,7 +315,8 @@ fn main() {
             "precision-dense" => precision_problem(0.95),
             "precision-ar1" => precision_ar1_problem(),
             "logistic-illcond" => linear_problem(true, 1000, 2000, 0.99, 0.005),
-            "crf" => crf_problem(),
+            "crf" => crf_problem(45, (400, 40, 45), 0.0, 0.5),
+            "crf-correlated" => crf_problem(46, (1000, 150, 80), 0.8, 0.7),
             other => {
                 eprintln!("unknown loss '{other}' in ELLONE_BENCH_LOSSES; skipped");
                 continue;
