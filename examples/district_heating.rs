@@ -164,6 +164,18 @@ mod app {
                 if i == r.chosen { "  ← chosen" } else { "" }
             );
         }
+        let unconverged = r
+            .crf_grid
+            .iter()
+            .filter(|g| g.status != ellone::solver::Status::Converged)
+            .count();
+        if unconverged > 0 {
+            println!(
+                "  Note: {unconverged} of {} CRF fits stopped before the KKT tolerance (status and \
+                 KKT residual above); their estimates are the best iterates reached.",
+                r.crf_grid.len()
+            );
+        }
         println!(
             "\nLasso: {:.1} non-zero coefficients per output on average; {} of {} outputs chose the path's smallest λ.",
             r.lasso.mean_nnz, r.lasso.at_path_end, z.outputs
@@ -203,6 +215,21 @@ mod app {
              demand minus the peak of the mean forecast; coverage: share of days whose actual \
              peak stayed below the provisioned 95th percentile, target 95%)"
         );
+        println!(
+            "\nEnergy-score decomposition (swap the mean and the covariance of CRF and lasso):"
+        );
+        for m in &r.swaps {
+            println!(
+                "  {:<32} {:>8.4} {:>14.2} {:>12.4} {:>8.4} {:>12.2} {:>9.1}%",
+                m.name,
+                m.rmse,
+                m.nll,
+                m.energy_score,
+                m.crps,
+                m.reserve,
+                100.0 * m.coverage
+            );
+        }
         let s = &r.structure;
         println!(
             "\nStructure of Λ: {} edges found, {} true, {} correct: precision {:.3}, recall {:.3}; chance level (edge density) {:.4}.",

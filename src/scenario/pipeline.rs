@@ -107,10 +107,12 @@ use crate::crf::scores::{energy_score, gaussian_crps};
 use crate::crf::{model_from_solution, Alternating, CrfData, CrfLoss, CrfModel, InputMode};
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky, matmul};
-use crate::loss::LeastSquares;
+use crate::loss::{LeastSquares, Loss};
 use crate::path::{fit_path, PathOptions};
-use crate::penalty::Penalty;
+use crate::penalty::{Penalty, ResolvedPenalty};
+use crate::precision::{estimate_precision, PrecisionInput, PrecisionOptions};
 use crate::race::{RaceEntry, RaceResult};
+use crate::solver::newton_cd::CdOptions;
 use crate::solver::{Control, Fista, NewtonCd, Owlqn, Solver, SolverOptions, Status, TraceRecord};
 
 /// Everything the pipeline needs; [`PipelineConfig::default`] is the documented scenario,
@@ -131,8 +133,14 @@ pub struct PipelineConfig {
     pub theta_ratios: Vec<f64>,
     /// Relative KKT tolerance of every CRF fit (default 1e-4).
     pub crf_tol: f64,
-    /// Outer-iteration limit of every CRF fit (default 25).
+    /// Outer-iteration limit of every CRF fit (default 12).
     pub crf_max_iter: usize,
+    /// Inner coordinate sweeps per Newton iteration of the CRF fits (default 30; see the
+    /// module docs for why more do not pay on this problem).
+    pub crf_inner_sweeps: usize,
+    /// Exponent γ of the adaptive penalty weights of the CRF (default `Some(1.0)`), or
+    /// `None` for the plain penalty (every weight 1). See step 4 of the module docs.
+    pub adaptive: Option<f64>,
     /// Number of λ values on each output's lasso path (default 15).
     pub lasso_lambdas: usize,
     /// λ_min/λ_max of each output's lasso path (default 1e-4).
@@ -153,10 +161,12 @@ impl Default for PipelineConfig {
             scenario: HeatingConfig::default(),
             train_years: 4,
             validation_years: 1,
-            crf_lambdas: vec![0.2, 0.1, 0.05],
-            theta_ratios: vec![1.0],
+            crf_lambdas: vec![0.05, 0.025, 0.0125],
+            theta_ratios: vec![0.3, 0.1, 0.03],
             crf_tol: 1e-4,
-            crf_max_iter: 25,
+            crf_max_iter: 12,
+            crf_inner_sweeps: 30,
+            adaptive: Some(1.0),
             lasso_lambdas: 15,
             lasso_ratio: 1e-4,
             scenarios: 200,
@@ -187,6 +197,7 @@ impl PipelineConfig {
             theta_ratios: vec![1.0],
             crf_tol: 1e-5,
             crf_max_iter: 200,
+            crf_inner_sweeps: 100,
             lasso_lambdas: 10,
             scenarios: 100,
             race_budget: None,
@@ -210,8 +221,17 @@ impl PipelineConfig {
                 self.crf_tol
             ));
         }
-        if self.crf_max_iter == 0 || self.lasso_lambdas == 0 {
-            return bad("crf_max_iter and lasso_lambdas must be at least 1".into());
+        if self.crf_max_iter == 0 || self.crf_inner_sweeps == 0 || self.lasso_lambdas == 0 {
+            return bad(
+                "crf_max_iter, crf_inner_sweeps and lasso_lambdas must be at least 1".into(),
+            );
+        }
+        if let Some(g) = self.adaptive {
+            if !(g.is_finite() && g > 0.0) {
+                return bad(format!(
+                    "the adaptive exponent must be finite and > 0, got {g}"
+                ));
+            }
         }
         if !(self.lasso_ratio > 0.0 && self.lasso_ratio <= 1.0) {
             return bad(format!(
@@ -406,6 +426,11 @@ pub struct Report {
     /// Test-year scores: "sparse CRF", "lasso, independent errors", "least squares, full
     /// covariance", "oracle (true model)".
     pub models: Vec<ModelScores>,
+    /// The energy-score decomposition: test-year scores of two hybrids that swap the mean
+    /// and the covariance between the CRF and the lasso ([`SWAP_CRF_COVARIANCE`],
+    /// [`SWAP_CRF_MEAN`]), which separate what the mean forecast and what the error
+    /// dependence contribute to each score.
+    pub swaps: Vec<ModelScores>,
     /// Edge recovery of the chosen CRF's Λ.
     pub structure: EdgeRecovery,
     /// Edges (i < j) of the chosen CRF's Λ.
@@ -435,6 +460,10 @@ pub const LASSO: &str = "lasso, independent errors";
 pub const OLS: &str = "least squares, full covariance";
 /// Name of the true model in [`Report::models`].
 pub const ORACLE: &str = "oracle (true model)";
+/// Name in [`Report::swaps`] of the lasso mean with the CRF's covariance.
+pub const SWAP_CRF_COVARIANCE: &str = "lasso mean, CRF covariance";
+/// Name in [`Report::swaps`] of the CRF mean with the lasso's independent errors.
+pub const SWAP_CRF_MEAN: &str = "CRF mean, lasso variances";
 
 /// Runs the pipeline without progress output.
 ///
@@ -516,7 +545,7 @@ fn lasso_output(train: &Part, val: &Part, k: usize, config: &PipelineConfig) -> 
         n_lambdas: config.lasso_lambdas,
         ratio: Some(config.lasso_ratio),
         solver: NewtonCd::new(SolverOptions {
-            tol: 1e-6,
+            tol: 1e-5,
             ..Default::default()
         }),
         ..Default::default()
@@ -663,13 +692,44 @@ fn symmetrise(a: &mut Array2<f64>) {
     }
 }
 
+/// Largest adaptive penalty weight; entries that are zero at the two-step start get it, so
+/// they can enter the model only if their gradient exceeds 1000·λ.
+const MAX_WEIGHT: f64 = 1e3;
+
 /// The scaled CRF problem: y' = (y − ȳ)/d with d the lasso residual sds.
+#[derive(Clone)]
 struct CrfProblem {
     loss: CrfLoss,
     y_mean: Vec<f64>,
     y_scale: Vec<f64>,
-    /// The common start: the lasso fit on the scaled problem.
-    start: Vec<f64>,
+    /// The lasso coefficients on the scaled outputs, B̂' (p×q).
+    b_scaled: Array2<f64>,
+    /// The covariance of the scaled lasso residuals, S_r = R'ᵀR'/n (q×q).
+    residual_cov: Array2<f64>,
+}
+
+/// The start and penalty of one grid point.
+struct GridStart {
+    x: Vec<f64>,
+    penalty: Penalty,
+}
+
+/// Adaptive weights (m/|v_k|)^γ for the entries `v` (m = mean |v_k| over the non-zeros,
+/// so a typical entry keeps weight 1), [`MAX_WEIGHT`] for zeros.
+fn adaptive_weights(v: impl Iterator<Item = f64> + Clone, gamma: f64) -> Vec<f64> {
+    let (sum, count) = v
+        .clone()
+        .filter(|t| *t != 0.0)
+        .fold((0.0, 0usize), |(s, c), t| (s + t.abs(), c + 1));
+    let m = if count == 0 { 1.0 } else { sum / count as f64 };
+    v.map(|t| {
+        if t == 0.0 {
+            MAX_WEIGHT
+        } else {
+            (m / t.abs()).powf(gamma).min(MAX_WEIGHT)
+        }
+    })
+    .collect()
 }
 
 impl CrfProblem {
@@ -685,30 +745,61 @@ impl CrfProblem {
         }
         let data = CrfData::new(train.x.view(), ys.view(), false, false, InputMode::Auto)?;
         let loss = CrfLoss::new(data, 1.0, ratio)?;
-        // Start: Λ = diag(1/mean r'²), Θ = −B̂'Λ from the lasso.
         let mut b_scaled = Array2::zeros((p, q));
-        let mut lam0 = Array2::zeros((q, q));
+        let mut resid = Array2::zeros((n, q));
         for (k, f) in lassos.iter().enumerate() {
             for j in 0..p {
                 b_scaled[[j, k]] = f.b[j] / y_scale[k];
             }
             let fitted = train.x.dot(&ArrayView1::from(&f.b[..]));
-            let ms: f64 = fitted
-                .iter()
-                .zip(train.y.column(k))
-                .map(|(a, t)| ((t - f.b0 - a) / y_scale[k]).powi(2))
-                .sum::<f64>()
-                / n as f64;
-            lam0[[k, k]] = 1.0 / ms.max(1e-12);
+            for (i, (a, t)) in fitted.iter().zip(train.y.column(k)).enumerate() {
+                resid[[i, k]] = (t - f.b0 - a) / y_scale[k];
+            }
         }
-        let theta0 = -matmul(b_scaled.view(), lam0.view());
-        let start = loss.pack(lam0.view(), theta0.view())?;
+        let mut residual_cov = matmul(resid.t(), resid.view());
+        residual_cov.mapv_inplace(|v| v / n as f64);
+        symmetrise(&mut residual_cov);
         Ok(Self {
             loss,
             y_mean,
             y_scale,
-            start,
+            b_scaled,
+            residual_cov,
         })
+    }
+
+    /// The two-step start of the grid point λ_Λ = `lambda` (step 4 of the module docs):
+    /// Λ₀ = the sparse precision estimate of the lasso residuals at λ_Λ, Θ₀ = −B̂'Λ₀, and
+    /// the penalty λ_Λ with adaptive weights from (Λ₀, Θ₀) when `adaptive` is set.
+    fn start(&self, lambda: f64, adaptive: Option<f64>) -> Result<GridStart> {
+        let fit = estimate_precision(
+            PrecisionInput::Covariance(self.residual_cov.view()),
+            lambda,
+            &PrecisionOptions::default(),
+        )?;
+        let lam0 = fit.precision;
+        let theta0 = -matmul(self.b_scaled.view(), lam0.view());
+        let x = self.loss.pack(lam0.view(), theta0.view())?;
+        let mut penalty = Penalty::l1(lambda)?;
+        if let Some(gamma) = adaptive {
+            let nl = self.loss.precision_coordinates();
+            let q = lam0.nrows();
+            // Off-diagonal Λ entries (the diagonal is unpenalised: its weight is unused).
+            let off: Vec<usize> = (0..nl)
+                .filter(|&k| self.loss.structural_factor(k) > 0.0)
+                .collect();
+            let wl = adaptive_weights(off.iter().map(|&k| x[k]), gamma);
+            let wt = adaptive_weights(x[nl..].iter().copied(), gamma);
+            let mut w = vec![1.0; nl];
+            for (&k, v) in off.iter().zip(wl) {
+                w[k] = v;
+            }
+            w.extend(wt);
+            debug_assert_eq!(w.len(), nl + self.b_scaled.len());
+            debug_assert_eq!(q * (q + 1) / 2, nl);
+            penalty = penalty.with_weights(w)?;
+        }
+        Ok(GridStart { x, penalty })
     }
 
     /// The model in MW from coordinates x of the scaled problem:
@@ -741,14 +832,71 @@ fn edges_of(a: ArrayView2<f64>) -> Vec<(usize, usize)> {
     e
 }
 
-/// The chosen CRF: its problem, coordinates and model.
+/// The chosen CRF: its problem, start, penalty, coordinates and model.
 struct ChosenCrf {
     problem: CrfProblem,
+    start: Vec<f64>,
+    penalty: Penalty,
     x: Vec<f64>,
     model: CrfModel,
 }
 
-/// Fits the CRF grid; returns the grid, the index of the chosen point and the chosen fit.
+/// One fitted grid point before selection.
+struct GridFit {
+    point: CrfGridPoint,
+    chosen: ChosenCrf,
+}
+
+/// Fits one grid point from its two-step start.
+fn fit_grid_point(
+    problem: &CrfProblem,
+    lambda: f64,
+    ratio: f64,
+    val: &Part,
+    config: &PipelineConfig,
+) -> Result<GridFit> {
+    let st = problem.start(lambda, config.adaptive)?;
+    let solver = NewtonCd {
+        options: SolverOptions {
+            tol: config.crf_tol,
+            max_iter: config.crf_max_iter,
+            ..Default::default()
+        },
+        cd: CdOptions {
+            max_inner_sweeps: config.crf_inner_sweeps,
+            ..Default::default()
+        },
+    };
+    let sol = solver.solve_observed(&problem.loss, &st.penalty, Some(&st.x), None)?;
+    let model = problem.model(&sol.x)?;
+    let nll = model.negative_log_likelihood(val.x.view(), val.y.view())?;
+    let theta_nnz = sol.x[problem.loss.precision_coordinates()..]
+        .iter()
+        .filter(|v| **v != 0.0)
+        .count();
+    Ok(GridFit {
+        point: CrfGridPoint {
+            lambda_precision: lambda,
+            lambda_interaction: ratio * lambda,
+            validation_nll: nll,
+            edges: edges_of(model.precision()).len(),
+            interaction_nnz: theta_nnz,
+            iterations: sol.iterations,
+            status: sol.status,
+            kkt_residual: sol.kkt_residual,
+        },
+        chosen: ChosenCrf {
+            problem: problem.clone(),
+            start: st.x,
+            penalty: st.penalty,
+            x: sol.x,
+            model,
+        },
+    })
+}
+
+/// Fits the CRF grid (independent fits, as many at a time as there are threads); returns
+/// the grid, the index of the chosen point and the chosen fit.
 fn fit_crf_grid(
     train: &Part,
     val: &Part,
@@ -758,68 +906,38 @@ fn fit_crf_grid(
 ) -> Result<(Vec<CrfGridPoint>, usize, ChosenCrf)> {
     let mut lambdas = config.crf_lambdas.clone();
     lambdas.sort_by(|a, b| b.total_cmp(a));
-    let total = (lambdas.len() * config.theta_ratios.len()) as u64;
-    progress.begin("sparse CRF path", total);
-    let solver = NewtonCd::new(SolverOptions {
-        tol: config.crf_tol,
-        max_iter: config.crf_max_iter,
-        ..Default::default()
-    });
+    let problems: Vec<CrfProblem> = config
+        .theta_ratios
+        .iter()
+        .map(|&c| CrfProblem::new(train, lassos, c))
+        .collect::<Result<_>>()?;
+    let jobs: Vec<(usize, f64)> = (0..problems.len())
+        .flat_map(|r| lambdas.iter().map(move |&l| (r, l)))
+        .collect();
+    progress.begin("sparse CRF grid", jobs.len() as u64);
     let mut grid = Vec::new();
     let mut best: Option<(f64, usize, ChosenCrf)> = None;
-    for &c in &config.theta_ratios {
-        let problem = CrfProblem::new(train, lassos, c)?;
-        let mut start = problem.start.clone();
-        for &lam in &lambdas {
-            let pen = Penalty::l1(lam)?;
-            let mut observer = |r: &TraceRecord| {
-                progress.note(&format!(
-                    "λ_Λ = {lam:.3}, λ_Θ = {:.3}: iteration {}, KKT {:.1e}",
-                    c * lam,
-                    r.iteration,
-                    r.kkt_residual
-                ));
-                Control::Continue
-            };
-            let sol =
-                solver.solve_observed(&problem.loss, &pen, Some(&start), Some(&mut observer))?;
-            let model = problem.model(&sol.x)?;
-            let nll = model.negative_log_likelihood(val.x.view(), val.y.view())?;
-            let theta_nnz = sol.x[problem.loss.precision_coordinates()..]
-                .iter()
-                .filter(|v| **v != 0.0)
-                .count();
-            grid.push(CrfGridPoint {
-                lambda_precision: lam,
-                lambda_interaction: c * lam,
-                validation_nll: nll,
-                edges: edges_of(model.precision()).len(),
-                interaction_nnz: theta_nnz,
-                iterations: sol.iterations,
-                status: sol.status,
-                kkt_residual: sol.kkt_residual,
-            });
-            let idx = grid.len() - 1;
-            let better = best.as_ref().is_none_or(|b| nll < b.0);
-            start = sol.x;
-            if better {
-                best = Some((
-                    nll,
-                    idx,
-                    ChosenCrf {
-                        problem: CrfProblem {
-                            loss: problem.loss.clone(),
-                            y_mean: problem.y_mean.clone(),
-                            y_scale: problem.y_scale.clone(),
-                            start: problem.start.clone(),
-                        },
-                        x: start.clone(),
-                        model,
-                    },
-                ));
+    let chunk = rayon::current_num_threads().max(1);
+    for part in jobs.chunks(chunk) {
+        let fits: Vec<GridFit> = part
+            .par_iter()
+            .map(|&(r, lam)| fit_grid_point(&problems[r], lam, config.theta_ratios[r], val, config))
+            .collect::<Result<_>>()?;
+        for f in fits {
+            let nll = f.point.validation_nll;
+            progress.note(&format!(
+                "λ_Λ = {:.3}, λ_Θ = {:.3}: {} iterations, KKT {:.1e}",
+                f.point.lambda_precision,
+                f.point.lambda_interaction,
+                f.point.iterations,
+                f.point.kkt_residual
+            ));
+            grid.push(f.point);
+            if best.as_ref().is_none_or(|b| nll < b.0) {
+                best = Some((nll, grid.len() - 1, f.chosen));
             }
-            progress.advance(1);
         }
+        progress.advance(part.len() as u64);
     }
     progress.end();
     let (_, chosen, fit) = best.ok_or_else(|| Error::Numerical("empty CRF grid".into()))?;
@@ -1020,6 +1138,45 @@ pub fn run_with(config: &PipelineConfig, progress: &mut dyn Progress) -> Result<
     })?;
     progress.end();
 
+    // The swaps: N(lasso mean, CRF Σ) and N(CRF mean, lasso diagonal). The CRF mean is
+    // offset − ΣΘᵀx = offset + Bᵀx with B = −ΘΣ.
+    let crf_b = -matmul(crf.model.interaction(), crf.model.covariance());
+    let swap_models = [
+        (
+            SWAP_CRF_COVARIANCE,
+            gaussian_as_crf(
+                &lasso_b,
+                lasso_model.offset().to_vec(),
+                crf.model.precision().to_owned(),
+            )?,
+        ),
+        (
+            SWAP_CRF_MEAN,
+            gaussian_as_crf(
+                &crf_b,
+                crf.model.offset().to_vec(),
+                lasso_model.precision().to_owned(),
+            )?,
+        ),
+    ];
+    let swaps = timed(&mut timings, "swap scores", || {
+        swap_models
+            .iter()
+            .map(|(name, model)| {
+                score(
+                    &Candidate {
+                        name,
+                        model,
+                        x: test.x.view(),
+                    },
+                    &test,
+                    config,
+                    &sizes,
+                )
+            })
+            .collect::<Result<Vec<_>>>()
+    })?;
+
     let learned_edges = edges_of(crf.model.precision());
     let true_edges = edges_of(data.true_precision.view());
     let tp = learned_edges
@@ -1041,7 +1198,7 @@ pub fn run_with(config: &PipelineConfig, progress: &mut dyn Progress) -> Result<
 
     let race = match config.race_budget {
         Some(budget) => Some(timed(&mut timings, "solver race", || {
-            run_race(&crf.problem, &crf.x, &grid[chosen], budget, progress)
+            run_race(&crf, budget, progress)
         })?),
         None => None,
     };
@@ -1053,6 +1210,7 @@ pub fn run_with(config: &PipelineConfig, progress: &mut dyn Progress) -> Result<
         lasso: lasso_summary,
         ols: ols_summary,
         models,
+        swaps,
         structure,
         learned_edges,
         true_edges,
@@ -1117,18 +1275,13 @@ fn make_fan(
     })
 }
 
-/// The race on the chosen problem: every racer from the lasso start, the same budget,
-/// traces through the observer hook. The reference objective is that of the grid fit at
-/// this (λ_Λ, λ_Θ) (warm-started along the path, more iterations than the race allows);
+/// The race on the chosen problem: every racer from the chosen grid point's two-step start,
+/// with its (weighted) penalty and the same budget, traces through the observer hook. The
+/// reference objective is that of the grid fit (more iterations than the race allows);
 /// F_best is the lower of it and the best objective any racer reached.
-fn run_race(
-    problem: &CrfProblem,
-    fitted: &[f64],
-    point: &CrfGridPoint,
-    budget: Duration,
-    progress: &mut dyn Progress,
-) -> Result<RaceResult> {
-    let pen = Penalty::l1(point.lambda_precision)?;
+fn run_race(crf: &ChosenCrf, budget: Duration, progress: &mut dyn Progress) -> Result<RaceResult> {
+    let problem = &crf.problem;
+    let pen = &crf.penalty;
     let opts = SolverOptions {
         tol: 1e-9,
         max_iter: 1_000_000,
@@ -1154,12 +1307,8 @@ fn run_race(
                 Control::Continue
             }
         };
-        let sol = solver.solve_observed(
-            &problem.loss,
-            &pen,
-            Some(&problem.start),
-            Some(&mut observer),
-        )?;
+        let sol =
+            solver.solve_observed(&problem.loss, pen, Some(&crf.start), Some(&mut observer))?;
         entries.push(RaceEntry {
             solver: sol.solver.clone(),
             records,
@@ -1182,8 +1331,8 @@ fn run_race(
         };
         let sol = Alternating::new(opts.clone()).solve(
             &problem.loss,
-            &pen,
-            Some(&problem.start),
+            pen,
+            Some(&crf.start),
             Some(&mut observer),
         )?;
         entries.push(RaceEntry {
@@ -1196,15 +1345,15 @@ fn run_race(
         progress.advance(1);
     }
     progress.end();
-    // F at the grid fit: f(x) + λ Σ_k factor_k |x_k| (the loss encodes λ_Λ, λ_Θ as factors).
-    let reference = crate::loss::Loss::value(&problem.loss, fitted).map(|f| {
-        f + point.lambda_precision
-            * fitted
-                .iter()
-                .enumerate()
-                .map(|(k, v)| crate::loss::Loss::structural_factor(&problem.loss, k) * v.abs())
-                .sum::<f64>()
-    });
+    // F at the grid fit: f(x) + λ Σ_k w_k·factor_k |x_k| (the loss encodes λ_Λ, λ_Θ as
+    // structural factors; the weights are the adaptive ones).
+    let resolved = ResolvedPenalty::new(pen, problem.loss.dim(), |k| {
+        problem.loss.structural_factor(k)
+    })?;
+    let reference = problem
+        .loss
+        .value(&crf.x)
+        .map(|f| f + resolved.value(&crf.x));
     let best = entries
         .iter()
         .flat_map(|e| e.records.iter().map(|r| r.objective).chain([e.objective]))
