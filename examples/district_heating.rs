@@ -147,15 +147,16 @@ mod app {
         );
         println!("\nSparse CRF grid (validation year; outputs scaled by the lasso residual sd):");
         println!(
-            "  {:>8} {:>8} {:>14} {:>7} {:>8} {:>6} {:>10} {:>20}",
-            "λ_Λ", "λ_Θ", "val. NLL/day", "edges", "nnz(Θ)", "iter", "KKT", "status"
+            "  {:>8} {:>8} {:>14} {:>9} {:>7} {:>8} {:>6} {:>10} {:>20}",
+            "λ_Λ", "λ_Θ", "val. NLL/day", "val. RMSE", "edges", "nnz(Θ)", "iter", "KKT", "status"
         );
         for (i, g) in r.crf_grid.iter().enumerate() {
             println!(
-                "  {:>8.4} {:>8.4} {:>14.2} {:>7} {:>8} {:>6} {:>10.2e} {:>20}{}",
+                "  {:>8.4} {:>8.4} {:>14.2} {:>9.4} {:>7} {:>8} {:>6} {:>10.2e} {:>20}{}",
                 g.lambda_precision,
                 g.lambda_interaction,
                 g.validation_nll,
+                g.validation_rmse,
                 g.edges,
                 g.interaction_nnz,
                 g.iterations,

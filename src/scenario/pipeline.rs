@@ -162,7 +162,7 @@ impl Default for PipelineConfig {
             train_years: 4,
             validation_years: 1,
             crf_lambdas: vec![0.05, 0.025, 0.0125],
-            theta_ratios: vec![0.3, 0.1, 0.03],
+            theta_ratios: vec![1.0, 0.3, 0.1],
             crf_tol: 1e-4,
             crf_max_iter: 12,
             crf_inner_sweeps: 30,
@@ -310,6 +310,8 @@ pub struct CrfGridPoint {
     pub lambda_interaction: f64,
     /// Mean validation negative log-likelihood per day (nats, original units).
     pub validation_nll: f64,
+    /// Validation RMSE of the mean forecast, MW (reported, not used for the choice).
+    pub validation_rmse: f64,
     /// Edges of Λ (non-zero off-diagonal pairs).
     pub edges: usize,
     /// Non-zero entries of Θ.
@@ -870,6 +872,8 @@ fn fit_grid_point(
     let sol = solver.solve_observed(&problem.loss, &st.penalty, Some(&st.x), None)?;
     let model = problem.model(&sol.x)?;
     let nll = model.negative_log_likelihood(val.x.view(), val.y.view())?;
+    let resid = &val.y - &model.predict(val.x.view())?;
+    let rmse = (resid.iter().map(|v| v * v).sum::<f64>() / resid.len().max(1) as f64).sqrt();
     let theta_nnz = sol.x[problem.loss.precision_coordinates()..]
         .iter()
         .filter(|v| **v != 0.0)
@@ -879,6 +883,7 @@ fn fit_grid_point(
             lambda_precision: lambda,
             lambda_interaction: ratio * lambda,
             validation_nll: nll,
+            validation_rmse: rmse,
             edges: edges_of(model.precision()).len(),
             interaction_nnz: theta_nnz,
             iterations: sol.iterations,
