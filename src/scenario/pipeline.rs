@@ -22,9 +22,11 @@
 //!    `(1/(2n)) Σ_i (y_ik − b0_k − x_iᵀb_k)² + λ_k Σ_j |b_jk|`, along a log-spaced path of
 //!    `lasso_lambdas` values down to `lasso_ratio·λ_max`; λ_k minimises the validation mean
 //!    squared error. Errors are modelled as independent, N(0, v_k) with
-//!    `v_k = RSS_k / (n − df_k)` from the training fit (df_k = non-zeros + 1). Each path
-//!    is solved to a relative KKT tolerance of 1e-5 (measured on four outputs: end-of-path
-//!    objectives within 2e-4 relative of those at 1e-6, in about half the time).
+//!    `v_k = RSS_k / (n − df_k)` from the training fit (df_k = non-zeros + 1). The outputs
+//!    share X, so every path runs on an exactly equivalent reduced problem with p + 1
+//!    instead of n rows (a Cholesky factor of X̃ᵀX̃; see `ReducedDesign`), to a relative
+//!    KKT tolerance of 1e-5 (measured on four outputs: end-of-path objectives within 2e-4
+//!    relative of those at 1e-6, in about half the time).
 //! 3. **Unpenalised least squares with the full residual covariance** (comparison b). The
 //!    multivariate least-squares fit `B = (X̃ᵀX̃)⁻¹X̃ᵀY` (X̃ = standardised inputs and a column
 //!    of ones) by a Cholesky factorisation of X̃ᵀX̃ (a ridge of 1e-10·tr/p is added only if
@@ -93,12 +95,12 @@
 //!
 //! # What the default run shows (measured, and why)
 //!
-//! Wall time on 2 cores: 140 s on a lightly loaded machine (lasso paths 31 s, CRF grid 75 s,
-//! test-year scores 11 s, race 24 s; measured just before the swap scores, 5–11 s, were
-//! added) and 300 s while other jobs ran (66, 177, 33 and 23 s); the earlier default took
-//! 8–15 minutes. The numbers below are identical in every run (the grid points are
-//! independent fits, so adding or removing grid points does not change the chosen fit
-//! either). All nine CRF fits stop at the 12-iteration limit, reported as
+//! Wall time on 2 cores shared with other jobs: 231 s (lasso paths 6 s, CRF grid 167 s,
+//! test-year and swap scores 23 + 11 s, race 24 s; load average 3.5). With a lightly
+//! loaded machine the same CRF grid took 75 s (and the whole run 140 s with the earlier,
+//! slower lasso step); the earlier default took 8–15 minutes. The numbers below are
+//! identical in every run (the grid points are independent fits, so adding or removing
+//! grid points does not change the chosen fit either). All nine CRF fits stop at the 12-iteration limit, reported as
 //! `iteration_limit` with KKT residuals 0.09–0.85 (scaled units). The chosen point is
 //! (λ_Λ, λ_Θ) = (0.025, 0.0075), interior in the ratio λ_Θ/λ_Λ ∈ {1, 0.3, 0.1}; it lies
 //! at the small end of λ_Λ ∈ {0.1, 0.05, 0.025}, so the grid was extended to 0.0125 in a
@@ -137,7 +139,11 @@
 //! the per-output lasso penalises with its own λ per output; and the mean inherits the
 //! estimation error of Σ through B̂ = −Θ̂Σ̂. On the validation year every grid point has
 //! RMSE 0.2984–0.3062 MW (lasso 0.2968, least squares 0.3067, true model 0.2952), so no
-//! choice of (λ_Λ, λ_Θ) — not even one made by RMSE — closes the gap.
+//! choice of (λ_Λ, λ_Θ) — not even one made by RMSE — closes the gap. Two further
+//! variants were measured at the chosen point and rejected (validation RMSE, chosen
+//! 0.2994): adaptive exponents γ = 0.5 and 2 (0.2996 both) and a relaxed second fit with
+//! the penalty of the non-zero Θ entries × 0.3 or × 0.1 ("Relaxed Lasso", Computational
+//! Statistics & Data Analysis, 2007; 0.2998 and 0.3002).
 //!
 //! **It is not the solver (measured).** Far more inner work changes the statistics by
 //! little: on the full problem (λ_Λ = 0.05, λ_Θ = 0.005, adaptive weights on Θ only) 12
@@ -599,9 +605,60 @@ struct LassoFit {
     at_end: bool,
 }
 
-fn lasso_output(train: &Part, val: &Part, k: usize, config: &PipelineConfig) -> Result<LassoFit> {
-    let y = train.y.column(k).to_vec();
-    let loss = LeastSquares::from_dense(train.x.view(), &y, true)?;
+/// The per-output lasso problems in reduced form. All outputs share the design
+/// X̃ = [X, 1] (n × p̃). With X̃ᵀX̃ = LLᵀ (Cholesky) and b̂_k = (X̃ᵀX̃)⁻¹X̃ᵀy_k,
+/// `‖y_k − X̃b‖² = ‖Lᵀ(b̂_k − b)‖² + const`, so with c = √(p̃/n), Z = cLᵀ and u_k = Z b̂_k,
+///
+/// ```text
+/// (1/(2n))‖y_k − X̃b‖² = (1/(2p̃))‖u_k − Zb‖² + const_k:
+/// ```
+///
+/// the same gradient and Hessian X̃ᵀX̃/n at every b, hence the same path (the intercept is
+/// the last column of Z, unpenalised through a zero weight), with p̃ instead of n rows per
+/// coordinate update. Reported objectives differ by const_k; nothing here uses them.
+struct ReducedDesign {
+    z: Array2<f64>,
+    u: Array2<f64>,
+}
+
+/// The reduced form, or `None` when n ≤ p̃ or X̃ᵀX̃ is numerically singular (the lassos
+/// then run on the data themselves).
+fn reduced_design(train: &Part) -> Option<ReducedDesign> {
+    let xt = with_ones(&train.x);
+    let (n, pt) = xt.dim();
+    if n <= pt {
+        return None;
+    }
+    let ch = cholesky(matmul(xt.t(), xt.view()).view())?;
+    let c = (pt as f64 / n as f64).sqrt();
+    let z = ch.lower().t().mapv(|v| v * c);
+    let b = ch.solve_mat(matmul(xt.t(), train.y.view()).view());
+    let u = matmul(z.view(), b.view());
+    (z.iter().chain(u.iter()).all(|v| v.is_finite())).then_some(ReducedDesign { z, u })
+}
+
+fn lasso_output(
+    train: &Part,
+    val: &Part,
+    reduced: Option<&ReducedDesign>,
+    k: usize,
+    config: &PipelineConfig,
+) -> Result<LassoFit> {
+    let p = train.x.ncols();
+    let (loss, penalty) = match reduced {
+        Some(r) => {
+            let mut w = vec![1.0; p + 1];
+            w[p] = 0.0;
+            (
+                LeastSquares::from_dense(r.z.view(), &r.u.column(k).to_vec(), false)?,
+                Penalty::l1(1.0)?.with_weights(w)?,
+            )
+        }
+        None => (
+            LeastSquares::from_dense(train.x.view(), &train.y.column(k).to_vec(), true)?,
+            Penalty::l1(1.0)?,
+        ),
+    };
     let opts = PathOptions {
         n_lambdas: config.lasso_lambdas,
         ratio: Some(config.lasso_ratio),
@@ -611,8 +668,7 @@ fn lasso_output(train: &Part, val: &Part, k: usize, config: &PipelineConfig) -> 
         }),
         ..Default::default()
     };
-    let path = fit_path(&loss, &Penalty::l1(1.0)?, train.x.dim(), &opts)?;
-    let p = train.x.ncols();
+    let path = fit_path(&loss, &penalty, train.x.dim(), &opts)?;
     let yv = val.y.column(k);
     let mut best = (f64::INFINITY, 0usize);
     for (i, pt) in path.points.iter().enumerate() {
@@ -663,6 +719,7 @@ fn fit_lassos(
     progress: &mut dyn Progress,
 ) -> Result<Vec<LassoFit>> {
     let q = train.y.ncols();
+    let reduced = reduced_design(train);
     progress.begin("lasso paths (one per output)", q as u64);
     let mut fits = Vec::with_capacity(q);
     let chunk = 16;
@@ -670,7 +727,7 @@ fn fit_lassos(
         let end = (start + chunk).min(q);
         let part: Vec<LassoFit> = (start..end)
             .into_par_iter()
-            .map(|k| lasso_output(train, val, k, config))
+            .map(|k| lasso_output(train, val, reduced.as_ref(), k, config))
             .collect::<Result<_>>()?;
         fits.extend(part);
         progress.advance((end - start) as u64);
