@@ -1498,4 +1498,39 @@ mod tests {
         assert_eq!(quantile(&mut v, 0.95), 95.0);
         assert_eq!(quantile(&mut v, 0.5), 50.0);
     }
+
+    /// The reduced lasso problem has the gradient and Hessian of the original one at every
+    /// point and differs from it by a constant (the normal-equations identity
+    /// ‖y − X̃b‖² = ‖y − X̃b̂‖² + ‖X̃(b̂ − b)‖², textbook least squares).
+    #[test]
+    fn reduced_lasso_problem_matches_the_original() {
+        let (n, p) = (50, 4);
+        let x = Array2::from_shape_fn((n, p), |(i, j)| ((i * 7 + j * 5) % 13) as f64 / 6.0 - 1.0);
+        let y = Array2::from_shape_fn((n, 2), |(i, k)| {
+            x[[i, 0]] - 0.5 * x[[i, 2 + k]] + ((i * 11 + k) % 7) as f64 / 7.0
+        });
+        let train = Part {
+            x: x.clone(),
+            y: y.clone(),
+            rows: 0..n,
+        };
+        let r = reduced_design(&train).unwrap();
+        assert_eq!(r.z.dim(), (p + 1, p + 1));
+        for k in 0..2 {
+            let full = LeastSquares::from_dense(x.view(), &y.column(k).to_vec(), true).unwrap();
+            let red = LeastSquares::from_dense(r.z.view(), &r.u.column(k).to_vec(), false).unwrap();
+            let points = [vec![0.0; p + 1], vec![0.3, -0.2, 0.1, 0.5, 1.2]];
+            let mut offsets = Vec::new();
+            for b in &points {
+                let (mut g1, mut g2) = (vec![0.0; p + 1], vec![0.0; p + 1]);
+                full.gradient(b, &mut g1);
+                red.gradient(b, &mut g2);
+                for (a, c) in g1.iter().zip(&g2) {
+                    assert!((a - c).abs() <= 1e-12 * (1.0 + a.abs()), "{g1:?} vs {g2:?}");
+                }
+                offsets.push(full.value(b).unwrap() - red.value(b).unwrap());
+            }
+            assert!((offsets[0] - offsets[1]).abs() <= 1e-12 * (1.0 + offsets[0].abs()));
+        }
+    }
 }
