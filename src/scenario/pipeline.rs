@@ -151,17 +151,22 @@
 //! **It is not the solver (measured).** Far more inner work changes the statistics by
 //! little: on the full problem (λ_Λ = 0.05, λ_Θ = 0.005, adaptive weights on Θ only) 12
 //! iterations of 100 sweeps against 8 of 30 moved the validation NLL by 0.1 nats and the
-//! RMSE by 0.0003 MW; on a 96-output version 1 000
-//! sweeps per iteration against 100 moved them by 0.07 nats and 0.0002 MW. The fits do not
-//! reach the KKT tolerance because of the Λ–Θ coupling: the residual sits in the Λ block
-//! (Λ 0.07–0.3, Θ 0.005–0.02 after 12 iterations), the inner sweeps stop at their cap in
+//! RMSE by 0.0003 MW; on a 96-output version 1 000 sweeps per iteration against 100
+//! moved them by 0.07 nats and 0.0002 MW. The fits do not reach the KKT tolerance because
+//! of the Λ–Θ coupling: the residual sits in the Λ block (Λ 0.07–0.4, Θ 0.005–0.05 after
+//! 8–12 iterations in the runs measured), the inner sweeps stop at their cap in
 //! every iteration, and with Θ fixed a change of Λ_kk moves the mean, so its curvature
 //! Σ_kk² + 2Σ_kkΦ_kk is dominated by Φ_kk ≈ the signal-to-noise variance ratio of output k
 //! (57–243, median 107, here) — about 200× the curvature along the mean-preserving
 //! direction (E, ΘΣE), whose Θ part is dense; coordinate descent zig-zags between the
-//! blocks. The CRF's exact Hessian block (for the driver's subspace Newton step) does not
-//! help at this size: the active sets hold 4 500–16 000 coordinates, far above the step's
-//! 600 limit. The generator was not changed to make the CRF win. The race (5 s per
+//! blocks. The inputs add their own ill-conditioning: κ(S_xx) = 2.1·10⁶ (collinear
+//! weather blocks) and κ(Λ₀) = 81 at the chosen start, so the Θ block 2Σ⊗S_xx alone has
+//! κ ≈ 1.7·10⁸. The CRF's exact Hessian block (for the driver's subspace Newton step) does
+//! not help at this size: the active sets hold 4 500–16 000 coordinates, far above the
+//! step's 600 limit. A conjugate-gradient solve of the active-set Newton system was tried
+//! (96-output version, diagonal preconditioner): 200 Hessian products reduced its residual
+//! only 7× and the result flipped the sign of half the active coordinates, so the line
+//! search rejected it. The generator was not changed to make the CRF win. The race (5 s per
 //! solver) shows the first few Newton iterations only.
 
 use std::ops::Range;
