@@ -428,7 +428,7 @@ pub fn plot_validation(
             chart
                 .draw_series(LineSeries::new(pts.clone(), color.stroke_width(2)))
                 .map_err(|e| io(e.to_string()))?
-                .label(format!("λ_Θ = {c}·λ_Λ"))
+                .label(format!("λ_Θ = {}·λ_Λ", short(c)))
                 .legend(move |(x, y)| {
                     PathElement::new(vec![(x, y), (x + 20, y)], color.stroke_width(2))
                 });
@@ -449,8 +449,9 @@ pub fn plot_validation(
             )))
             .map_err(|e| io(e.to_string()))?
             .label(format!(
-                "chosen: λ_Λ = {:.3}, λ_Θ = {:.3}",
-                g.lambda_precision, g.lambda_interaction
+                "chosen: λ_Λ = {}, λ_Θ = {}",
+                short(g.lambda_precision),
+                short(g.lambda_interaction)
             ))
             .legend(move |(x, y)| Circle::new((x + 10, y), 6, red.stroke_width(2)));
         if p == 1 {
@@ -483,4 +484,34 @@ pub fn plot_validation(
     }
     root.present().map_err(|e| io(e.to_string()))?;
     Ok(())
+}
+
+/// A grid value for a legend: four significant digits, no trailing zeros or
+/// representation noise (0.1·3 shows as 0.3, not 0.30000000000000004).
+fn short(v: f64) -> String {
+    if v == 0.0 || !v.is_finite() {
+        return format!("{v}");
+    }
+    let digits = (3 - v.abs().log10().floor() as i32).max(0) as usize;
+    let s = format!("{v:.digits$}");
+    if s.contains('.') {
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        s
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::short;
+
+    #[test]
+    fn legend_values_are_short() {
+        assert_eq!(short(0.1 * 1.0000000000000002), "0.1");
+        assert_eq!(short(0.3 * 0.025), "0.0075");
+        assert_eq!(short(0.025), "0.025");
+        assert_eq!(short(1.0), "1");
+        assert_eq!(short(123.456), "123.5");
+        assert_eq!(short(0.0), "0");
+    }
 }
