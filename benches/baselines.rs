@@ -33,6 +33,9 @@
 //! target/bench-baselines), `ELLONE_BENCH_SOLVERS` (baselines to run besides Newton-CD,
 //! default "fista,admm,owl-qn").
 
+#[path = "common/sparse_graph.rs"]
+mod sparse_graph;
+
 use ellone::crf::{CrfData, CrfLoss, InputMode};
 use ellone::linalg;
 use ellone::loss::precision::LogDet;
@@ -43,6 +46,7 @@ use ellone::{LeastSquares, Logistic, Loss, Penalty};
 use ndarray::Array2;
 use rand::{rngs::StdRng, RngExt, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
+use sparse_graph::{quantile_lambda, sparse_graph_covariance};
 use std::path::PathBuf;
 use std::time::Duration;
 
@@ -118,40 +122,8 @@ fn linear_problem(
 /// The sparse-graph covariance of benches/precision.rs, λ at the `quantile` of the
 /// off-diagonal |S_ij|.
 fn precision_problem(quantile: f64) -> (Box<dyn Loss>, Penalty) {
-    let p = 1000;
-    let mut rng = StdRng::seed_from_u64(1000);
-    let mut theta = Array2::<f64>::zeros((p, p));
-    for i in 0..p {
-        for _ in 0..2 {
-            let j = rng.random_range(0..p);
-            if j != i {
-                let v =
-                    rng.random_range(0.2..0.4) * if rng.random::<f64>() < 0.5 { -1.0 } else { 1.0 };
-                theta[[i, j]] = v;
-                theta[[j, i]] = v;
-            }
-        }
-    }
-    for i in 0..p {
-        let r: f64 = theta.row(i).iter().map(|v| v.abs()).sum();
-        theta[[i, i]] = r + 0.5;
-    }
-    let sigma = linalg::cholesky(theta.view())
-        .expect("diagonally dominant")
-        .inverse();
-    let l = linalg::cholesky(sigma.view()).expect("SPD").lower();
-    let n = p / 2 + 200;
-    let z = normal_matrix(&mut rng, n, p);
-    let x = linalg::matmul(z.view(), l.t());
-    let s = sample_covariance(x.view(), true).expect("finite data");
-    let mut off: Vec<f64> = Vec::with_capacity(p * (p - 1) / 2);
-    for i in 0..p {
-        for j in i + 1..p {
-            off.push(s[[i, j]].abs());
-        }
-    }
-    off.sort_by(f64::total_cmp);
-    let lambda = off[(off.len() as f64 * quantile) as usize];
+    let s = sparse_graph_covariance(1000, 1000);
+    let lambda = quantile_lambda(&s, 1.0 - quantile);
     let loss = LogDet::new(s.view(), false).expect("valid covariance");
     (Box::new(loss), Penalty::l1(lambda).expect("valid λ"))
 }

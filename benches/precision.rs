@@ -1,9 +1,7 @@
 //! Sparse precision estimation on synthetic sparse-graph data, p ∈ {500, 1000, 2000}.
 //!
-//! Data: a random sparse graph (each variable linked to 2 others chosen at random), true
-//! precision Θ* with off-diagonal entries ±U(0.2, 0.4) and a diagonal making it strictly
-//! diagonally dominant (hence positive definite); n = p/2 + 200 samples of N(0, Θ*⁻¹); S is
-//! their centred sample covariance. λ is set to the quantile of the off-diagonal |S_ij|
+//! Data: the sparse-graph covariance of `benches/common/sparse_graph.rs` (each variable
+//! linked to 2 others, n = p/2 + 200 samples). λ is set to the quantile of the off-diagonal |S_ij|
 //! that keeps about 1% of the pairs above it (a rule of thumb for "about 1% non-zeros";
 //! the achieved density of the estimate is printed).
 //!
@@ -14,58 +12,16 @@
 //! Environment: `ELLONE_BENCH_P` (comma-separated sizes, default "500,1000,2000"),
 //! `ELLONE_BENCH_REPEATS` (default 3).
 
+#[path = "common/sparse_graph.rs"]
+mod sparse_graph;
+
 use criterion::{criterion_group, criterion_main, Criterion};
 use ellone::linalg;
-use ellone::precision::{
-    estimate_precision, sample_covariance, PrecisionFit, PrecisionInput, PrecisionOptions,
-};
+use ellone::precision::{estimate_precision, PrecisionFit, PrecisionInput, PrecisionOptions};
 use ndarray::Array2;
-use rand::{rngs::StdRng, RngExt, SeedableRng};
-use rand_distr::{Distribution, StandardNormal};
+use sparse_graph::{quantile_lambda, sparse_graph_covariance};
 use std::hint::black_box;
 use std::time::{Duration, Instant};
-
-/// The sample covariance of synthetic sparse-graph data, and an SPD matrix of the same size
-/// for the reference factorisation.
-fn synthetic(p: usize, seed: u64) -> Array2<f64> {
-    let mut rng = StdRng::seed_from_u64(seed);
-    let mut theta = Array2::<f64>::zeros((p, p));
-    for i in 0..p {
-        for _ in 0..2 {
-            let j = rng.random_range(0..p);
-            if j != i {
-                let v =
-                    rng.random_range(0.2..0.4) * if rng.random::<f64>() < 0.5 { -1.0 } else { 1.0 };
-                theta[[i, j]] = v;
-                theta[[j, i]] = v;
-            }
-        }
-    }
-    for i in 0..p {
-        let r: f64 = theta.row(i).iter().map(|v| v.abs()).sum();
-        theta[[i, i]] = r + 0.5;
-    }
-    let sigma = linalg::cholesky(theta.view())
-        .expect("diagonally dominant")
-        .inverse();
-    let l = linalg::cholesky(sigma.view()).expect("SPD").lower();
-    let n = p / 2 + 200;
-    let z = Array2::from_shape_fn((n, p), |_| StandardNormal.sample(&mut rng));
-    let x = linalg::matmul(z.view(), l.t());
-    sample_covariance(x.view(), true).expect("finite data")
-}
-
-fn quantile_lambda(s: &Array2<f64>, density: f64) -> f64 {
-    let p = s.nrows();
-    let mut v: Vec<f64> = Vec::with_capacity(p * (p - 1) / 2);
-    for i in 0..p {
-        for j in 0..i {
-            v.push(s[[i, j]].abs());
-        }
-    }
-    v.sort_by(|a, b| b.total_cmp(a));
-    v[((density * v.len() as f64) as usize).min(v.len() - 1)]
-}
 
 fn median(mut v: Vec<f64>) -> f64 {
     v.sort_by(f64::total_cmp);
@@ -103,7 +59,7 @@ fn bench(c: &mut Criterion) {
     group.sample_size(10);
     group.warm_up_time(Duration::from_millis(100));
     for p in sizes() {
-        let s = synthetic(p, 7 + p as u64);
+        let s = sparse_graph_covariance(p, 7 + p as u64);
         let lambda = quantile_lambda(&s, 0.01);
         // Reference: one Cholesky + inverse of an SPD p × p matrix (S + I).
         let mut spd = s.clone();
