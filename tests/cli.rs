@@ -7,59 +7,14 @@
 //! plus textbook identities (elastic net as an augmented lasso, the one-output CRF as linear
 //! regression, the CRF with Θ = 0 as the precision problem).
 
+#[path = "common/cli_files.rs"]
+mod cli_files;
 mod common;
 
+use cli_files::{csv_text, ellone, stderr, TempFile};
 use common::{read_numeric_table, read_table, significant_digits};
 use ndarray::{s, Array2};
 use serde_json::Value;
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
-use std::sync::atomic::{AtomicUsize, Ordering};
-
-/// A temporary file that is removed when dropped.
-struct TempFile(PathBuf);
-
-impl TempFile {
-    /// A fresh, unique path in the system's temporary directory ending in `suffix`.
-    fn new(suffix: &str) -> Self {
-        static COUNTER: AtomicUsize = AtomicUsize::new(0);
-        let k = COUNTER.fetch_add(1, Ordering::Relaxed);
-        let name = format!("ellone-cli-test-{}-{k}-{suffix}", std::process::id());
-        Self(std::env::temp_dir().join(name))
-    }
-
-    /// A temporary file holding `text`.
-    fn with_text(suffix: &str, text: &str) -> Self {
-        let f = Self::new(suffix);
-        std::fs::write(&f.0, text).expect("write temporary file");
-        f
-    }
-
-    fn path(&self) -> &Path {
-        &self.0
-    }
-
-    fn arg(&self) -> &str {
-        self.0.to_str().expect("temporary paths are UTF-8 here")
-    }
-}
-
-impl Drop for TempFile {
-    fn drop(&mut self) {
-        let _ = std::fs::remove_file(&self.0);
-    }
-}
-
-/// Headerless CSV text of a matrix; Rust's `{}` for f64 is the shortest round-trip decimal.
-fn csv_text(a: &Array2<f64>) -> String {
-    let mut out = String::new();
-    for row in a.rows() {
-        let fields: Vec<String> = row.iter().map(|v| format!("{v}")).collect();
-        out.push_str(&fields.join(","));
-        out.push('\n');
-    }
-    out
-}
 
 /// One value per line.
 fn vector_text(v: &[f64]) -> String {
@@ -80,17 +35,6 @@ fn matrix_market_text(a: &Array2<f64>) -> String {
         entries.len(),
         entries.join("\n")
     )
-}
-
-fn ellone(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_ellone"))
-        .args(args)
-        .output()
-        .expect("the ellone binary runs")
-}
-
-fn stderr(out: &Output) -> String {
-    String::from_utf8_lossy(&out.stderr).into_owned()
 }
 
 /// Runs `ellone ARGS`, requires success and parses stdout as JSON.

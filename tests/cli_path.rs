@@ -6,63 +6,13 @@
 //! objectives of the precision problem of the macrodata correlation matrix at four λ.
 #![cfg(feature = "cli")]
 
+#[path = "common/cli_files.rs"]
+mod cli_files;
 mod common;
 
+use cli_files::{csv_text, ellone, TempFile};
 use common::{read_numeric_table, read_table};
-use ndarray::Array2;
 use serde_json::Value;
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
-use std::sync::atomic::{AtomicUsize, Ordering};
-
-/// A temporary file that is removed when dropped.
-struct TempFile(PathBuf);
-
-impl TempFile {
-    fn new(suffix: &str) -> Self {
-        static COUNTER: AtomicUsize = AtomicUsize::new(0);
-        let k = COUNTER.fetch_add(1, Ordering::Relaxed);
-        let name = format!("ellone-cli-path-{}-{k}-{suffix}", std::process::id());
-        Self(std::env::temp_dir().join(name))
-    }
-    fn with_text(suffix: &str, text: &str) -> Self {
-        let f = Self::new(suffix);
-        std::fs::write(&f.0, text).expect("write temporary file");
-        f
-    }
-    fn path(&self) -> &Path {
-        &self.0
-    }
-    fn arg(&self) -> &str {
-        self.0.to_str().expect("UTF-8 temporary path")
-    }
-}
-
-impl Drop for TempFile {
-    fn drop(&mut self) {
-        let _ = std::fs::remove_file(&self.0);
-    }
-}
-
-fn csv_text(a: &Array2<f64>) -> String {
-    a.rows()
-        .into_iter()
-        .map(|r| {
-            r.iter()
-                .map(|v| format!("{v}"))
-                .collect::<Vec<_>>()
-                .join(",")
-                + "\n"
-        })
-        .collect()
-}
-
-fn ellone(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_ellone"))
-        .args(args)
-        .output()
-        .expect("the ellone binary runs")
-}
 
 fn run_json(args: &[&str]) -> Value {
     let out = ellone(args);
