@@ -5,6 +5,7 @@
 
 use crate::{CliError, CliResult};
 use ellone::io::{self, MatrixInput};
+use ellone::precision::{check_semidefinite, sample_covariance};
 use ellone::{Design, Error};
 use std::path::Path;
 
@@ -68,4 +69,34 @@ pub fn check_labels(option: &str, path: &Path, y: &[f64]) -> CliResult<()> {
         .context(option_file(option, path))),
         None => Ok(()),
     }
+}
+
+/// The covariance S of `--loss precision`: `--cov FILE` as given (it must be positive
+/// semidefinite), or S = X̃ᵀX̃/n from `--x FILE` (X̃ centred only with `center`). Exactly one
+/// of the two must be set. Returns S and the `--option FILE` label for later errors.
+pub fn covariance(
+    cov: Option<&Path>,
+    x: Option<&Path>,
+    center: bool,
+) -> CliResult<(ndarray::Array2<f64>, String)> {
+    let (option, path) = match (cov, x) {
+        (Some(c), None) => ("cov", c),
+        (None, Some(x)) => ("x", x),
+        _ => {
+            return Err(CliError::new(
+                "--loss precision needs exactly one of --cov FILE or --x FILE",
+            ))
+        }
+    };
+    let label = option_file(option, path);
+    let matrix = dense_matrix(path)?;
+    let s = if cov.is_some() {
+        check_semidefinite(matrix.view()).map(|()| matrix)
+    } else {
+        sample_covariance(matrix.view(), center)
+    };
+    Ok((
+        s.map_err(|e| CliError::from(e).context(label.clone()))?,
+        label,
+    ))
 }

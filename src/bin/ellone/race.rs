@@ -19,7 +19,6 @@ use crate::{CliError, CliResult};
 use clap::ValueEnum;
 use ellone::crf::{CrfData, CrfLoss, InputMode};
 use ellone::loss::precision::LogDet;
-use ellone::precision::sample_covariance;
 use ellone::race::{race, RaceOptions};
 use ellone::solver::{Solver, SolverOptions};
 use ellone::{LeastSquares, Logistic, Loss, Penalty};
@@ -145,23 +144,9 @@ fn problem(args: &Args) -> CliResult<(Box<dyn Loss>, Penalty)> {
             Ok((loss, lambda()?))
         }
         LossKind::Precision => {
-            let (option, path) = match (&args.cov, &args.x) {
-                (Some(c), None) => ("cov", c.clone()),
-                (None, Some(x)) => ("x", x.clone()),
-                _ => {
-                    return Err(CliError::new(
-                        "--loss precision needs exactly one of --cov FILE or --x FILE",
-                    ))
-                }
-            };
-            let ctx = |e: ellone::Error| CliError::from(e).context(option_file(option, &path));
-            let matrix = input::dense_matrix(&path)?;
-            let s = if args.cov.is_some() {
-                ellone::precision::check_semidefinite(matrix.view()).map_err(ctx)?;
-                matrix
-            } else {
-                sample_covariance(matrix.view(), args.center).map_err(ctx)?
-            };
+            let (s, label) =
+                input::covariance(args.cov.as_deref(), args.x.as_deref(), args.center)?;
+            let ctx = |e: ellone::Error| CliError::from(e).context(label.clone());
             let loss = LogDet::new(s.view(), false).map_err(ctx)?;
             Ok((Box::new(loss), lambda()?))
         }

@@ -24,7 +24,7 @@ use crate::solvers::SolverKind;
 use crate::{CliError, CliResult};
 use ellone::crf::{CrfData, CrfLoss, InputMode};
 use ellone::loss::precision::LogDet;
-use ellone::precision::{estimate_precision, sample_covariance, PrecisionInput, PrecisionOptions};
+use ellone::precision::{estimate_precision, PrecisionInput, PrecisionOptions};
 use ellone::solver::{Solution, SolverOptions, Status};
 use ellone::{LeastSquares, Logistic, Loss, Penalty};
 use ndarray::Array2;
@@ -332,20 +332,9 @@ fn rows(what: &str, a: &Array2<f64>) -> CliResult<Vec<Vec<f64>>> {
 /// `--center`). Newton coordinate descent runs through the library's estimator (exact block
 /// screening); other solvers run on the log-det loss directly.
 fn solve_precision(args: &Args, options: SolverOptions) -> CliResult<Report> {
-    let (option, path) = match (&args.cov, &args.x) {
-        (Some(c), _) => ("cov", c.as_path()),
-        (None, Some(x)) => ("x", x.as_path()),
-        (None, None) => return Err(CliError::new("--loss precision needs --cov or --x")),
-    };
     let pen = Penalty::l1(args.lambda).map_err(|e| CliError::from(e).context("--lambda"))?;
-    let matrix = input::dense_matrix(path)?;
-    let context = |e: ellone::Error| CliError::from(e).context(option_file(option, path));
-    let s = if args.cov.is_some() {
-        ellone::precision::check_semidefinite(matrix.view()).map_err(context)?;
-        matrix
-    } else {
-        sample_covariance(matrix.view(), args.center).map_err(context)?
-    };
+    let (s, label) = input::covariance(args.cov.as_deref(), args.x.as_deref(), args.center)?;
+    let context = |e: ellone::Error| CliError::from(e).context(label.clone());
     if args.solver == SolverKind::NewtonCd {
         let weights = match &args.weights {
             Some(path) => {
