@@ -208,17 +208,22 @@ const SEMIDEFINITE_SHIFT: f64 = 1e-8;
 /// # Errors
 /// As [`validate_covariance`]; [`Error::NotPositiveDefinite`] when the test fails.
 pub fn check_semidefinite(s: ArrayView2<f64>) -> Result<()> {
-    let s = validate_covariance(s, "covariance")?;
+    semidefinite(&validate_covariance(s, "covariance")?)
+}
+
+/// [`check_semidefinite`] on a covariance that [`validate_covariance`] has already checked.
+fn semidefinite(s: &Array2<f64>) -> Result<()> {
     let p = s.nrows();
     let top = (0..p).map(|i| s[[i, i]]).fold(0.0f64, f64::max);
     let shift = SEMIDEFINITE_SHIFT * top.max(f64::MIN_POSITIVE);
-    let mut m = s;
+    let mut m = s.clone();
     for i in 0..p {
         m[[i, i]] += shift;
     }
     if linalg::cholesky(m.view()).is_none() {
         return Err(Error::NotPositiveDefinite(format!(
-            "covariance: not positive semidefinite (S + δI has no Cholesky factor,              δ = {shift:.3e}); a sample covariance never is indefinite"
+            "covariance: not positive semidefinite (S + δI has no Cholesky factor, \
+             δ = {shift:.3e}); a sample covariance never is indefinite"
         )));
     }
     Ok(())
@@ -507,8 +512,9 @@ pub fn estimate_precision(
     options.solver.validate()?;
     let s_raw = match input {
         PrecisionInput::Covariance(s) => {
-            check_semidefinite(s)?;
-            validate_covariance(s, "covariance")?
+            let s = validate_covariance(s, "covariance")?;
+            semidefinite(&s)?;
+            s
         }
         PrecisionInput::Data(x) => {
             validate_covariance(sample_covariance(x, options.centre)?.view(), "covariance")?
