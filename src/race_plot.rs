@@ -7,6 +7,7 @@
 //! visible. A dashed horizontal line marks the race's target accuracy.
 
 use crate::error::{Error, Result};
+use crate::plot::draw_legend;
 use crate::race::RaceResult;
 use plotters::prelude::*;
 use std::path::Path;
@@ -109,13 +110,7 @@ pub fn plot_race(result: &RaceResult, path: &Path, width: u32, height: u32) -> R
                 PathElement::new(vec![(x, y), (x + 20, y)], color.stroke_width(2))
             });
     }
-    chart
-        .configure_series_labels()
-        .position(SeriesLabelPosition::UpperRight)
-        .background_style(WHITE.mix(0.85))
-        .border_style(BLACK)
-        .draw()
-        .map_err(|e| io(e.to_string()))?;
+    draw_legend(&mut chart, SeriesLabelPosition::UpperRight, None).map_err(&io)?;
     root.present().map_err(|e| io(e.to_string()))?;
     Ok(())
 }

@@ -2,7 +2,7 @@
 //! ±1 standard-error bars, and dashed vertical markers at the two chosen values, λ_min (the
 //! minimum mean score) and λ_1se (the largest λ within one standard error of it).
 
-use super::{check_size, io_error, padded, CAPTION_SIZE, PALETTE};
+use super::{check_size, draw_legend, io_error, padded, CAPTION_SIZE, PALETTE};
 use crate::cv::CvResult;
 use crate::error::{Error, Result};
 use plotters::prelude::*;
@@ -130,13 +130,7 @@ pub fn plot_cv(cv: &CvResult, file: &Path, title: &str, width: u32, height: u32)
                 PathElement::new(vec![(x, y), (x + 20, y)], color.stroke_width(2))
             });
     }
-    chart
-        .configure_series_labels()
-        .position(SeriesLabelPosition::UpperLeft)
-        .background_style(WHITE.mix(0.85))
-        .border_style(BLACK)
-        .draw()
-        .map_err(|e| io(e.to_string()))?;
+    draw_legend(&mut chart, SeriesLabelPosition::UpperLeft, None).map_err(&io)?;
     root.present().map_err(|e| io(e.to_string()))?;
     Ok(())
 }

@@ -16,6 +16,8 @@ pub use cv_plot::plot_cv;
 pub use path_plot::{plot_path, PathPlotOptions};
 
 use crate::error::{Error, Result};
+use plotters::coord::CoordTranslate;
+use plotters::prelude::*;
 use plotters::style::RGBColor;
 use std::path::Path;
 
@@ -74,4 +76,29 @@ pub(crate) fn padded(lo: f64, hi: f64, pad: f64) -> (f64, f64) {
         return (lo - half, hi + half);
     }
     (lo - pad * span, hi + pad * span)
+}
+
+/// Draws the chart's legend in the shared style (translucent white box, black border) at
+/// `position`, with `font_size`-pixel labels when given (plotters' default otherwise).
+///
+/// # Errors
+/// The drawing backend's message.
+pub(crate) fn draw_legend<'a, DB, CT>(
+    chart: &mut ChartContext<'a, DB, CT>,
+    position: SeriesLabelPosition,
+    font_size: Option<u32>,
+) -> std::result::Result<(), String>
+where
+    DB: DrawingBackend + 'a,
+    CT: CoordTranslate,
+{
+    let mut style = chart.configure_series_labels();
+    style
+        .position(position)
+        .background_style(WHITE.mix(0.85))
+        .border_style(BLACK);
+    if let Some(size) = font_size {
+        style.label_font(("sans-serif", size));
+    }
+    style.draw().map_err(|e| e.to_string())
 }

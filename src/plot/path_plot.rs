@@ -2,7 +2,7 @@
 //! one line per coefficient that is non-zero at some point of the path (coefficients that
 //! stay at zero would only stack on the zero line).
 
-use super::{check_size, io_error, padded, CAPTION_SIZE, PALETTE};
+use super::{check_size, draw_legend, io_error, padded, CAPTION_SIZE, PALETTE};
 use crate::error::{Error, Result};
 use crate::path::RegPath;
 use plotters::prelude::*;
@@ -150,13 +150,7 @@ pub fn plot_path(path: &RegPath, file: &Path, opts: &PathPlotOptions) -> Result<
         }
     }
     if legend && !drawn.is_empty() {
-        chart
-            .configure_series_labels()
-            .position(SeriesLabelPosition::UpperRight)
-            .background_style(WHITE.mix(0.85))
-            .border_style(BLACK)
-            .draw()
-            .map_err(|e| io(e.to_string()))?;
+        draw_legend(&mut chart, SeriesLabelPosition::UpperRight, None).map_err(&io)?;
     }
     root.present().map_err(|e| io(e.to_string()))?;
     Ok(())

@@ -17,7 +17,7 @@ use plotters::prelude::*;
 
 use super::pipeline::{CrfGridPoint, Fan, Report};
 use crate::error::{Error, Result};
-use crate::plot::{check_size, padded, CAPTION_SIZE, PALETTE};
+use crate::plot::{check_size, draw_legend, padded, CAPTION_SIZE, PALETTE};
 
 /// A class of cells of the sparsity figure: legend label, colour, the (i < j) pairs.
 type EdgeCategory = (&'static str, RGBAColor, Vec<(usize, usize)>);
@@ -199,14 +199,7 @@ pub fn plot_fan(fan: &Fan, file: &Path, width: u32, height: u32) -> Result<()> {
         .map_err(|e| io(e.to_string()))?
         .label("actual demand")
         .legend(|(x, y)| Circle::new((x + 10, y), 4, BLACK.filled()));
-    chart
-        .configure_series_labels()
-        .position(SeriesLabelPosition::UpperRight)
-        .background_style(WHITE.mix(0.85))
-        .border_style(BLACK)
-        .label_font(("sans-serif", 14))
-        .draw()
-        .map_err(|e| io(e.to_string()))?;
+    draw_legend(&mut chart, SeriesLabelPosition::UpperRight, Some(14)).map_err(&io)?;
     root.present().map_err(|e| io(e.to_string()))?;
     Ok(())
 }
@@ -325,14 +318,7 @@ pub fn plot_structure(report: &Report, file: &Path, width: u32, height: u32) -> 
             .label(format!("{name} ({})", edges.len()))
             .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 12, y + 5)], color.filled()));
     }
-    chart
-        .configure_series_labels()
-        .position(SeriesLabelPosition::LowerLeft)
-        .background_style(WHITE.mix(0.9))
-        .border_style(BLACK)
-        .label_font(("sans-serif", 14))
-        .draw()
-        .map_err(|e| io(e.to_string()))?;
+    draw_legend(&mut chart, SeriesLabelPosition::LowerLeft, Some(14)).map_err(&io)?;
     root.present().map_err(|e| io(e.to_string()))?;
     Ok(())
 }
@@ -469,18 +455,16 @@ pub fn plot_validation(
                     PathElement::new(vec![(x, y), (x + 20, y)], BLACK.mix(0.6).stroke_width(1))
                 });
         }
-        chart
-            .configure_series_labels()
-            .position(if p == 0 {
+        draw_legend(
+            &mut chart,
+            if p == 0 {
                 SeriesLabelPosition::UpperLeft
             } else {
                 SeriesLabelPosition::UpperRight
-            })
-            .background_style(WHITE.mix(0.85))
-            .border_style(BLACK)
-            .label_font(("sans-serif", 14))
-            .draw()
-            .map_err(|e| io(e.to_string()))?;
+            },
+            Some(14),
+        )
+        .map_err(&io)?;
     }
     root.present().map_err(|e| io(e.to_string()))?;
     Ok(())
