@@ -227,28 +227,21 @@ impl Design {
         }
     }
 
-    /// u ← u + a·x_j and wu ← wu + a·(w ∘ x_j) in one pass over column j (keeps a weighted
-    /// copy W·u current, so a weighted product x_jᵀW u becomes a plain dot x_jᵀ(W u)).
+    /// Column j of a dense design (`None` for sparse storage).
     #[inline]
-    pub fn col_axpy_pair(&self, j: usize, a: f64, w: &[f64], u: &mut [f64], wu: &mut [f64]) {
+    pub fn dense_column(&self, j: usize) -> Option<&[f64]> {
         match &self.storage {
-            Storage::Dense(d) => {
-                let col = &d[j * self.n..(j + 1) * self.n];
-                for (((ui, wui), &wi), &x) in u.iter_mut().zip(wu.iter_mut()).zip(w).zip(col) {
-                    let t = a * x;
-                    *ui += t;
-                    *wui += t * wi;
-                }
-            }
-            Storage::Sparse(s) => {
-                if let Some(col) = s.outer_view(j) {
-                    for (i, &x) in col.iter() {
-                        let t = a * x;
-                        u[i] += t;
-                        wu[i] += t * w[i];
-                    }
-                }
-            }
+            Storage::Dense(d) => Some(&d[j * self.n..(j + 1) * self.n]),
+            Storage::Sparse(_) => None,
+        }
+    }
+
+    /// Number of stored entries of column j (n for dense storage).
+    #[inline]
+    pub fn col_nnz(&self, j: usize) -> usize {
+        match &self.storage {
+            Storage::Dense(_) => self.n,
+            Storage::Sparse(s) => s.outer_view(j).map_or(0, |c| c.nnz()),
         }
     }
 

@@ -467,5 +467,13 @@ fn from_data_with_standardisation() {
     let a = estimate_precision(PrecisionInput::Data(sub.view()), 0.5, &opts).unwrap();
     let b = solve_cov(&raw, 0.5, &tight());
     assert!(rel_diff(&a.precision, &b.precision) < 1e-9);
-    assert!(a.kkt_residual < 1e-9);
+    // The KKT tolerance is relative to the problem's scale (max |S_ij| here is in the tens).
+    let scale = raw.iter().fold(1.0f64, |m, v| m.max(v.abs()));
+    assert_eq!(a.status, Status::Converged);
+    assert!(
+        a.kkt_residual < 1e-9 * scale,
+        "{:?} {:e}",
+        a.status,
+        a.kkt_residual
+    );
 }

@@ -121,6 +121,7 @@ impl Alternating {
         start: Option<&[f64]>,
         observer: Option<&mut dyn Observer>,
     ) -> Result<Solution> {
+        self.cd.validate()?;
         let (mut run, pen, mut x) = Run::new(loss, penalty, start, &self.options, observer)?;
         let m = loss.dim();
         let nl = loss.precision_coordinates();
@@ -164,7 +165,7 @@ impl Alternating {
                 &free,
                 &mut target,
                 threshold,
-                self.cd.max_inner_sweeps,
+                &self.cd,
             )
             .0;
             let moved_theta = line_search(&mut model, &pen, &self.cd, &g, &free, &target, &mut x);
@@ -183,7 +184,7 @@ impl Alternating {
                 &free,
                 &mut target,
                 threshold,
-                self.cd.max_inner_sweeps,
+                &self.cd,
             )
             .0;
             let moved_lambda = line_search(&mut model, &pen, &self.cd, &g, &free, &target, &mut x);

@@ -76,16 +76,6 @@ impl LinearData {
         }
     }
 
-    /// Σ_i w_i x_ik².
-    #[inline]
-    pub(crate) fn col_weighted_sq(&self, k: usize, w: &[f64]) -> f64 {
-        if self.is_intercept(k) {
-            w.iter().sum()
-        } else {
-            self.x.col_weighted_sq(k, w)
-        }
-    }
-
     /// v ← v + a x_k.
     #[inline]
     pub(crate) fn col_axpy(&self, k: usize, a: f64, v: &mut [f64]) {

@@ -18,6 +18,7 @@
 //! intercept) and s ∈ \[0, 1\] the largest scaling that keeps u feasible.
 
 use super::glm::LinearData;
+use super::weighted_columns::{ColumnPool, WeightedColumns};
 use super::{LocalModel, Loss};
 use crate::design::Design;
 use crate::error::{Error, Result};
@@ -52,6 +53,8 @@ fn neg_entropy(u: f64) -> f64 {
 #[derive(Debug, Clone)]
 pub struct Logistic {
     data: LinearData,
+    /// Column buffers reused by successive local models.
+    pool: ColumnPool,
 }
 
 impl Logistic {
@@ -71,7 +74,10 @@ impl Logistic {
         {
             return Err(Error::InvalidLabel { row, value });
         }
-        Ok(Self { data })
+        Ok(Self {
+            data,
+            pool: ColumnPool::default(),
+        })
     }
 
     /// From a dense array (any layout).
@@ -251,14 +257,19 @@ impl Logistic {
                 p * (1.0 - p)
             })
             .collect();
+        let m = self.dim();
         Ok(Box::new(LogisticModel {
             loss: self,
             f: self.value_at_eta(&eta),
             eta,
             g,
             w,
-            curv: vec![f64::NAN; self.dim()],
+            curv: vec![f64::NAN; m],
+            cols: WeightedColumns::new(&self.data.x, &self.pool),
+            d: vec![0.0; m],
+            touched: Vec::new(),
             u: vec![0.0; n],
+            u_current: true,
             wu: vec![0.0; n],
             inv_n: 1.0 / n as f64,
         }))
@@ -266,6 +277,12 @@ impl Logistic {
 }
 
 /// Local model of the logistic loss at η (Newton's quadratic model plus exact line values).
+///
+/// The inner loop only needs H_kk and (Hd)_k = x_kᵀ(W u)/n with u = [X 1] d, so a step keeps
+/// W u current and nothing else: with column k and w ∘ x_k loaded the first time coordinate
+/// k is visited (together with H_kk, see [`WeightedColumns`]), a step is one scatter
+/// `Wu += δ (w ∘ x_k)` and (Hd)_k one gather. The direction d itself is kept as coordinates; u = [X 1] d is
+/// rebuilt once, when the line search first asks for f(x + αd).
 struct LogisticModel<'a> {
     loss: &'a Logistic,
     eta: Vec<f64>,
@@ -275,9 +292,15 @@ struct LogisticModel<'a> {
     w: Vec<f64>,
     /// H_kk, NaN until first computed.
     curv: Vec<f64>,
-    /// u = [X 1] d.
+    /// Columns x_k and w ∘ x_k, loaded with H_kk.
+    cols: WeightedColumns<'a>,
+    /// The direction d, and the coordinates where it may be non-zero.
+    d: Vec<f64>,
+    touched: Vec<usize>,
+    /// u = [X 1] d when `u_current`.
     u: Vec<f64>,
-    /// W u (kept with u, so (Hd)_k is one plain column dot).
+    u_current: bool,
+    /// W u, kept current by every step.
     wu: Vec<f64>,
     inv_n: f64,
 }
@@ -291,30 +314,66 @@ impl LocalModel for LogisticModel<'_> {
     }
     fn curvature(&mut self, k: usize) -> f64 {
         if self.curv[k].is_nan() {
-            self.curv[k] = self.loss.data.col_weighted_sq(k, &self.w) * self.inv_n;
+            let data = &self.loss.data;
+            let s = if data.is_intercept(k) {
+                self.w.iter().sum()
+            } else {
+                self.cols.load(k, &self.w)
+            };
+            self.curv[k] = s * self.inv_n;
         }
         self.curv[k]
     }
     fn hd(&mut self, k: usize) -> f64 {
-        self.loss.data.col_dot(k, &self.wu) * self.inv_n
+        let data = &self.loss.data;
+        let dot = if !data.is_intercept(k) && self.cols.loaded(k) {
+            self.cols.dot(k, &self.wu)
+        } else {
+            data.col_dot(k, &self.wu)
+        };
+        dot * self.inv_n
     }
     fn step(&mut self, k: usize, delta: f64) {
+        if self.d[k] == 0.0 {
+            self.touched.push(k);
+        }
+        self.d[k] += delta;
+        self.u_current = false;
         let data = &self.loss.data;
         if data.is_intercept(k) {
-            for ((u, wu), &w) in self.u.iter_mut().zip(self.wu.iter_mut()).zip(&self.w) {
-                *u += delta;
+            for (wu, &w) in self.wu.iter_mut().zip(&self.w) {
                 *wu += delta * w;
             }
+        } else if self.cols.loaded(k) {
+            self.cols.axpy_weighted(k, delta, &mut self.wu);
         } else {
             data.x
-                .col_axpy_pair(k, delta, &self.w, &mut self.u, &mut self.wu);
+                .for_each_in_col(k, |i, x| self.wu[i] += delta * self.w[i] * x);
         }
     }
     fn clear(&mut self) {
+        for &k in &self.touched {
+            self.d[k] = 0.0;
+        }
+        self.touched.clear();
         self.u.iter_mut().for_each(|v| *v = 0.0);
         self.wu.iter_mut().for_each(|v| *v = 0.0);
+        self.u_current = true;
     }
     fn value_along(&mut self, alpha: f64) -> Option<f64> {
+        if !self.u_current {
+            self.u.iter_mut().for_each(|v| *v = 0.0);
+            // `touched` may list a coordinate twice (its d returned to 0 and moved again);
+            // sort and deduplicate so each column enters u once.
+            self.touched.sort_unstable();
+            self.touched.dedup();
+            for &k in &self.touched {
+                if self.d[k] != 0.0 {
+                    self.loss.data.col_axpy(k, self.d[k], &mut self.u);
+                }
+            }
+            self.u_current = true;
+        }
         let s: f64 = self
             .eta
             .iter()

@@ -168,6 +168,7 @@ mod glm;
 pub mod least_squares;
 pub mod logistic;
 pub mod precision;
+mod weighted_columns;
 
 pub use least_squares::LeastSquares;
 pub use logistic::Logistic;
