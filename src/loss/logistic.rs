@@ -235,8 +235,14 @@ impl Logistic {
         x: &[f64],
         subset: Option<&[usize]>,
     ) -> Result<Box<dyn LocalModel + 'a>> {
-        let eta = self.data.eta(x);
-        let n = eta.len();
+        let cols = WeightedColumns::new(&self.data.x, &self.pool);
+        let n = self.data.n();
+        let mut eta = vec![0.0; n];
+        cols.matvec(x, &mut eta);
+        if self.data.intercept {
+            let b0 = x[self.data.p()];
+            eta.iter_mut().for_each(|e| *e += b0);
+        }
         let mut g = vec![0.0; self.dim()];
         match subset {
             Some(s) => {
@@ -265,7 +271,7 @@ impl Logistic {
             g,
             w,
             curv: vec![f64::NAN; m],
-            cols: WeightedColumns::new(&self.data.x, &self.pool),
+            cols,
             d: vec![0.0; m],
             touched: Vec::new(),
             u: vec![0.0; n],
@@ -326,10 +332,10 @@ impl LocalModel for LogisticModel<'_> {
     }
     fn hd(&mut self, k: usize) -> f64 {
         let data = &self.loss.data;
-        let dot = if !data.is_intercept(k) && self.cols.loaded(k) {
-            self.cols.dot(k, &self.wu)
-        } else {
+        let dot = if data.is_intercept(k) {
             data.col_dot(k, &self.wu)
+        } else {
+            self.cols.dot(k, &self.wu)
         };
         dot * self.inv_n
     }
@@ -367,9 +373,16 @@ impl LocalModel for LogisticModel<'_> {
             // sort and deduplicate so each column enters u once.
             self.touched.sort_unstable();
             self.touched.dedup();
+            let p = self.loss.data.p();
             for &k in &self.touched {
-                if self.d[k] != 0.0 {
-                    self.loss.data.col_axpy(k, self.d[k], &mut self.u);
+                let dk = self.d[k];
+                if dk == 0.0 {
+                    continue;
+                }
+                if k == p {
+                    self.u.iter_mut().for_each(|u| *u += dk); // the intercept
+                } else {
+                    self.cols.axpy(k, dk, &mut self.u);
                 }
             }
             self.u_current = true;
