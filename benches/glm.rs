@@ -16,6 +16,8 @@
 //! `ELLONE_GLM_ONLY=<text>` prints the report only for the problems whose "kind name"
 //! contains the text (e.g. "logistic sparse") and skips criterion's timings;
 //! `ELLONE_GLM_PROFILE=1` prints the per-iteration profile of the sparse logistic problem.
+//! For experiments with the inner loop, `ELLONE_OMEGA=<ω>` fixes the relaxation factor
+//! (`CdOptions::relaxation`; default adaptive) and `ELLONE_FORCING=<η>` the forcing factor.
 //!
 //! The data are synthetic (demo data): Gaussian (dense) or uniform (sparse) entries, a
 //! sparse true coefficient vector, Gaussian noise or Bernoulli labels.
@@ -135,10 +137,23 @@ fn xtv_serial_seconds(design: &Design, v: &[f64], reps: usize) -> f64 {
 }
 
 fn solver(trace: bool) -> NewtonCd {
-    NewtonCd::new(SolverOptions {
+    let mut s = NewtonCd::new(SolverOptions {
         trace,
         ..Default::default()
-    })
+    });
+    if let Some(w) = std::env::var("ELLONE_OMEGA")
+        .ok()
+        .and_then(|v| v.parse().ok())
+    {
+        s.cd.relaxation = Some(w);
+    }
+    if let Some(f) = std::env::var("ELLONE_FORCING")
+        .ok()
+        .and_then(|v| v.parse().ok())
+    {
+        s.cd.forcing = f;
+    }
+    s
 }
 
 /// Estimated passes over the data from the trace: per outer iteration one gradient pass
