@@ -226,6 +226,9 @@ impl LocalModel for LsModel<'_> {
     fn clear(&mut self) {
         self.u.iter_mut().for_each(|v| *v = 0.0);
     }
+    fn over_relaxation(&self) -> bool {
+        true
+    }
     fn value_along(&mut self, alpha: f64) -> Option<f64> {
         let s: f64 = self
             .r

@@ -50,6 +50,11 @@ fn neg_entropy(u: f64) -> f64 {
 }
 
 /// The logistic loss on dense or sparse data, with an optional intercept.
+///
+/// Memory: Newton coordinate descent keeps compact copies of the columns it has visited
+/// between iterations (row indices as `u32` plus values, and their weighted values), at most
+/// about the size of the sparse design again, or one n-vector per visited dense column;
+/// they live as long as the loss (a clone starts without them).
 #[derive(Debug, Clone)]
 pub struct Logistic {
     data: LinearData,
@@ -365,6 +370,9 @@ impl LocalModel for LogisticModel<'_> {
         self.u.iter_mut().for_each(|v| *v = 0.0);
         self.wu.iter_mut().for_each(|v| *v = 0.0);
         self.u_current = true;
+    }
+    fn over_relaxation(&self) -> bool {
+        true
     }
     fn value_along(&mut self, alpha: f64) -> Option<f64> {
         if !self.u_current {
