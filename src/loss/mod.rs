@@ -139,7 +139,7 @@ pub trait LocalModel {
     /// cached products (the line search calls it several times per iteration).
     fn value_along(&mut self, alpha: f64) -> Option<f64>;
     /// Whether Newton-CD may over-relax the inner sweeps on this model when they converge
-    /// slowly (adaptive successive over-relaxation, see [`crate::solver::CdOptions`]).
+    /// slowly (adaptive successive over-relaxation, see [`crate::solver::newton_cd::CdOptions`]).
     /// Worth it for Hessians Xᵀ W X of weakly coupled sparse columns (the regression losses
     /// return `true`); on the Kronecker-structured Hessians of log-det losses it was measured
     /// to slow the inner loop down, so the default is `false`.

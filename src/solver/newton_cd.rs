@@ -5,6 +5,8 @@
 //! 1. Build the loss's [`LocalModel`]: f(x), g = ∇f(x), and cheap access to H = ∇²f(x).
 //! 2. Free set F = {k : x_k ≠ 0} ∪ {k : |g_k| ≥ λ_k} (unpenalised coordinates always).
 //!    Coordinates outside F stay at zero: for them the optimality condition already holds.
+//!    From a cold start (no penalised coordinate non-zero) the first F admits only the
+//!    strongest violators (`cold_start_entry`; `CdOptions::first_step_working_set`).
 //! 3. Inner loop: cyclic coordinate descent on the penalised quadratic model
 //!    `q(d) = gᵀd + ½dᵀHd + Σ_k λ_k|x_k + d_k|` over F. For coordinate k with
 //!    a = H_kk, b = g_k + (Hd)_k and c = x_k + d_k, the exact minimiser along k is
@@ -61,6 +63,13 @@ pub struct CdOptions {
     pub armijo: f64,
     /// Maximum step halvings in the line search. Default 60.
     pub max_backtracks: usize,
+    /// Cold-start working set for the first outer iteration (default `true`): when no
+    /// penalised coordinate is non-zero at the start, only the strongest violators enter
+    /// the first free set (see `cold_start_entry`); later iterations use the full rule, and
+    /// the KKT test always covers every coordinate. Measured on the sparse 20000 × 50000
+    /// logistic benchmark: the first iteration's free set falls from 32 600 to about 20 000
+    /// coordinates, its 7 sweeps to 3, and the solve time by about 20 %.
+    pub first_step_working_set: bool,
     /// Over-relaxation factor ω ∈ (0, 2) of the inner sweeps (see `over_relaxed`; 1 is
     /// plain coordinate descent). `None` (the default) is adaptive for models that allow it
     /// ([`LocalModel::over_relaxation`]; the regression losses) and plain otherwise: each
@@ -111,6 +120,7 @@ impl Default for CdOptions {
             armijo: 1e-4,
             max_backtracks: 60,
             relaxation: None,
+            first_step_working_set: true,
         }
     }
 }
@@ -261,9 +271,14 @@ impl NewtonCd {
 
             // 2. Free set.
             free.clear();
+            let entry = if iteration == 0 && self.cd.first_step_working_set {
+                cold_start_entry(candidates, &x, &g, &pen)
+            } else {
+                1.0
+            };
             for &k in candidates {
                 let gk = g[k] + pen.l2[k] * x[k];
-                if x[k] != 0.0 || gk.abs() >= pen.l1[k] {
+                if x[k] != 0.0 || gk.abs() >= pen.l1[k] * entry {
                     free.push(k);
                 }
             }
@@ -377,6 +392,41 @@ impl NewtonCd {
             iteration,
             inner_total,
         )
+    }
+}
+
+/// The entry threshold of the first free set from a cold start, as a multiple of λ_k: with
+/// r_k = |g_k|/λ_k the violation ratio of a zero penalised coordinate and r_max the largest,
+/// zero coordinates enter only if r_k ≥ min(2, (1 + r_max)/2) (at least the largest one,
+/// so the set is never empty while some coordinate violates its condition). Returns 1 (the
+/// plain rule) for a warm start, i.e. when some penalised coordinate is already non-zero,
+/// or when nothing violates.
+///
+/// The first Newton step from zero otherwise works on every coordinate whose gradient
+/// exceeds its penalty, most of which end at zero (on the sparse logistic benchmark 32 600
+/// free coordinates for an 11 200-coordinate solution); those just above the penalty get
+/// their chance from the second iteration on. The factor 2 matches the sequential strong
+/// rule's gap between λ and the entry level ("Strong rules for discarding predictors in
+/// lasso-type problems", JRSS-B, 2012) for a previous λ' = 0 reference; it is a working set,
+/// not a screening rule: nothing is discarded for good.
+fn cold_start_entry(candidates: &[usize], x: &[f64], g: &[f64], pen: &ResolvedPenalty) -> f64 {
+    let mut r_max = 0.0f64;
+    for &k in candidates {
+        if pen.l1[k] <= 0.0 {
+            continue;
+        }
+        if x[k] != 0.0 {
+            return 1.0;
+        }
+        let r = (g[k] + pen.l2[k] * x[k]).abs() / pen.l1[k];
+        if r > r_max {
+            r_max = r;
+        }
+    }
+    if r_max.is_finite() && r_max > 1.0 {
+        (0.5 * (1.0 + r_max)).min(2.0)
+    } else {
+        1.0
     }
 }
 
@@ -630,6 +680,36 @@ mod tests {
         // No information, no change.
         assert_eq!(adaptive_relaxation(1.2, 1.3), 1.3);
         assert_eq!(adaptive_relaxation(0.0, 1.0), 1.0);
+    }
+
+    #[test]
+    fn cold_start_entry_threshold() {
+        // λ = 1 on four penalised coordinates and one unpenalised (index 4).
+        let pen = ResolvedPenalty {
+            l1: vec![1.0, 1.0, 1.0, 1.0, 0.0],
+            l2: vec![0.0; 5],
+        };
+        let all = [0usize, 1, 2, 3, 4];
+        let zero = [0.0; 5];
+        // Strong violators: min(2, (1 + 5)/2) = 2.
+        assert_eq!(
+            cold_start_entry(&all, &zero, &[5.0, -3.0, 0.5, 1.5, 9.0], &pen),
+            2.0
+        );
+        // Mild ones: (1 + 1.5)/2 = 1.25, so the largest still enters.
+        let e = cold_start_entry(&all, &zero, &[1.5, -1.2, 0.5, 0.1, 9.0], &pen);
+        assert_eq!(e, 1.25);
+        assert!(1.5 >= e);
+        // No violator, or a warm start: the plain rule.
+        assert_eq!(
+            cold_start_entry(&all, &zero, &[0.5, 0.2, 0.0, 0.1, 9.0], &pen),
+            1.0
+        );
+        let warm = [0.0, 0.3, 0.0, 0.0, 0.0];
+        assert_eq!(
+            cold_start_entry(&all, &warm, &[5.0, 0.0, 0.5, 1.5, 9.0], &pen),
+            1.0
+        );
     }
 
     #[test]
