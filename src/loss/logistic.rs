@@ -19,7 +19,7 @@
 
 use super::glm::LinearData;
 use super::weighted_columns::{ColumnPool, WeightedColumns};
-use super::{LocalModel, Loss};
+use super::{InnerLoopHints, LocalModel, Loss};
 use crate::design::Design;
 use crate::error::{Error, Result};
 use crate::penalty::ResolvedPenalty;
@@ -371,8 +371,11 @@ impl LocalModel for LogisticModel<'_> {
         self.wu.iter_mut().for_each(|v| *v = 0.0);
         self.u_current = true;
     }
-    fn over_relaxation(&self) -> bool {
-        true
+    fn inner_loop_hints(&self) -> InnerLoopHints {
+        InnerLoopHints {
+            over_relaxation: true,
+            cold_start_working_set: true,
+        }
     }
     fn value_along(&mut self, alpha: f64) -> Option<f64> {
         if !self.u_current {

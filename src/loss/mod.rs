@@ -16,10 +16,12 @@
 
 mod check;
 mod hessvec_model;
+mod inner_hints;
 mod structure;
 
 pub use check::{check_derivatives, DerivativeReport};
 pub use hessvec_model::HessVecModel;
+pub use inner_hints::InnerLoopHints;
 pub use structure::LossStructure;
 
 use crate::error::Result;
@@ -138,13 +140,10 @@ pub trait LocalModel {
     /// f(x + α d) for the current direction d, or `None` outside the domain. Should reuse
     /// cached products (the line search calls it several times per iteration).
     fn value_along(&mut self, alpha: f64) -> Option<f64>;
-    /// Whether Newton-CD may over-relax the inner sweeps on this model when they converge
-    /// slowly (adaptive successive over-relaxation, see [`crate::solver::newton_cd::CdOptions`]).
-    /// Worth it for Hessians Xᵀ W X of weakly coupled sparse columns (the regression losses
-    /// return `true`); on the Kronecker-structured Hessians of log-det losses it was measured
-    /// to slow the inner loop down, so the default is `false`.
-    fn over_relaxation(&self) -> bool {
-        false
+    /// The optional Newton-CD inner-loop strategies this model allows (see
+    /// [`InnerLoopHints`]; none by default).
+    fn inner_loop_hints(&self) -> InnerLoopHints {
+        InnerLoopHints::default()
     }
     /// The dense block H_AA (row-major, |A|×|A|) for a small index set A, used by the
     /// driver's subspace Newton step. The default reads it off [`LocalModel::hd`] by

@@ -6,7 +6,8 @@
 //! 2. Free set F = {k : x_k ≠ 0} ∪ {k : |g_k| ≥ λ_k} (unpenalised coordinates always).
 //!    Coordinates outside F stay at zero: for them the optimality condition already holds.
 //!    From a cold start (no penalised coordinate non-zero) the first F admits only the
-//!    strongest violators (`cold_start_entry`; `CdOptions::first_step_working_set`).
+//!    strongest violators for models that allow it (`cold_start_entry`;
+//!    `CdOptions::first_step_working_set`).
 //! 3. Inner loop: cyclic coordinate descent on the penalised quadratic model
 //!    `q(d) = gᵀd + ½dᵀHd + Σ_k λ_k|x_k + d_k|` over F. For coordinate k with
 //!    a = H_kk, b = g_k + (Hd)_k and c = x_k + d_k, the exact minimiser along k is
@@ -63,16 +64,17 @@ pub struct CdOptions {
     pub armijo: f64,
     /// Maximum step halvings in the line search. Default 60.
     pub max_backtracks: usize,
-    /// Cold-start working set for the first outer iteration (default `true`): when no
-    /// penalised coordinate is non-zero at the start, only the strongest violators enter
-    /// the first free set (see `cold_start_entry`); later iterations use the full rule, and
-    /// the KKT test always covers every coordinate. Measured on the sparse 20000 × 50000
-    /// logistic benchmark: the first iteration's free set falls from 32 600 to about 20 000
-    /// coordinates, its 7 sweeps to 3, and the solve time by about 20 %.
+    /// Cold-start working set for the first outer iteration (default `true`, for models
+    /// that allow it, see [`crate::loss::InnerLoopHints`]): when no penalised coordinate
+    /// is non-zero at the start, only the strongest violators enter the first free set
+    /// (see `cold_start_entry`); later iterations use the full rule, and the KKT test
+    /// always covers every coordinate. Measured on the sparse 20000 × 50000 logistic
+    /// benchmark: the first iteration's 7 sweeps over 32 600 coordinates drop to 3, and the
+    /// solve time by about 20 %.
     pub first_step_working_set: bool,
     /// Over-relaxation factor ω ∈ (0, 2) of the inner sweeps (see `over_relaxed`; 1 is
     /// plain coordinate descent). `None` (the default) is adaptive for models that allow it
-    /// ([`LocalModel::over_relaxation`]; the regression losses) and plain otherwise: each
+    /// ([`crate::loss::InnerLoopHints`]; the regression losses) and plain otherwise: each
     /// inner loop starts at ω = 1 and, while it keeps running, raises ω every two sweeps
     /// from the contraction it observes; well-conditioned models, which settle in a few
     /// sweeps, are never over-relaxed. Measured: sparse 20000 × 50000 logistic, 61 → 37
@@ -271,7 +273,10 @@ impl NewtonCd {
 
             // 2. Free set.
             free.clear();
-            let entry = if iteration == 0 && self.cd.first_step_working_set {
+            let entry = if iteration == 0
+                && self.cd.first_step_working_set
+                && model.inner_loop_hints().cold_start_working_set
+            {
                 cold_start_entry(candidates, &x, &g, &pen)
             } else {
                 1.0
@@ -447,7 +452,7 @@ pub(crate) fn coordinate_sweeps(
     threshold: f64,
     cd: &CdOptions,
 ) -> (usize, bool) {
-    let adaptive = cd.relaxation.is_none() && model.over_relaxation();
+    let adaptive = cd.relaxation.is_none() && model.inner_loop_hints().over_relaxation;
     let mut omega = cd.relaxation.unwrap_or(1.0);
     // Scaled energy Σ a·Δ² of the plain updates in the previous sweep, when that sweep ran
     // with the current ω (adaptive ω).
