@@ -248,26 +248,16 @@ impl Logistic {
             let b0 = x[self.data.p()];
             eta.iter_mut().for_each(|e| *e += b0);
         }
+        // π = σ(η) once, for both the residual π − y and the weights π(1 − π).
+        let pi: Vec<f64> = eta.iter().map(|&e| sigmoid(e)).collect();
+        let resid: Vec<f64> = pi.iter().zip(&self.data.y).map(|(&p, &y)| p - y).collect();
         let mut g = vec![0.0; self.dim()];
         match subset {
-            Some(s) => {
-                let resid: Vec<f64> = eta
-                    .iter()
-                    .zip(&self.data.y)
-                    .map(|(&e, &y)| sigmoid(e) - y)
-                    .collect();
-                self.data.tmatvec_subset(&resid, s, &mut g);
-                g.iter_mut().for_each(|v| *v /= n as f64);
-            }
-            None => self.gradient_at_eta(&eta, &mut g),
+            Some(s) => self.data.tmatvec_subset(&resid, s, &mut g),
+            None => self.data.tmatvec(&resid, &mut g),
         }
-        let w = eta
-            .iter()
-            .map(|&e| {
-                let p = sigmoid(e);
-                p * (1.0 - p)
-            })
-            .collect();
+        g.iter_mut().for_each(|v| *v /= n as f64);
+        let w = pi.iter().map(|&p| p * (1.0 - p)).collect();
         let m = self.dim();
         Ok(Box::new(LogisticModel {
             loss: self,
