@@ -227,21 +227,12 @@ impl Design {
         }
     }
 
-    /// Column j of a dense design (`None` for sparse storage).
+    /// Column j of a dense design (`None` for sparse storage or j out of range).
     #[inline]
     pub fn dense_column(&self, j: usize) -> Option<&[f64]> {
         match &self.storage {
-            Storage::Dense(d) => Some(&d[j * self.n..(j + 1) * self.n]),
-            Storage::Sparse(_) => None,
-        }
-    }
-
-    /// Number of stored entries of column j (n for dense storage).
-    #[inline]
-    pub fn col_nnz(&self, j: usize) -> usize {
-        match &self.storage {
-            Storage::Dense(_) => self.n,
-            Storage::Sparse(s) => s.outer_view(j).map_or(0, |c| c.nnz()),
+            Storage::Dense(d) if j < self.p => Some(&d[j * self.n..(j + 1) * self.n]),
+            _ => None,
         }
     }
 
@@ -363,6 +354,9 @@ mod tests {
                 sparse.col_dot_weighted(j, &w, &v)
             );
         }
+        assert_eq!(dense.dense_column(2), Some(&[2.0, 0.0, 5.0, 0.0][..]));
+        assert_eq!(dense.dense_column(3), None);
+        assert_eq!(sparse.dense_column(0), None);
         let (mut o1, mut o2) = ([0.0; 4], [0.0; 4]);
         dense.matvec(&[1.0, 2.0, 3.0], &mut o1);
         sparse.matvec(&[1.0, 2.0, 3.0], &mut o2);

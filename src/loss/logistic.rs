@@ -282,8 +282,8 @@ impl Logistic {
 /// The inner loop only needs H_kk and (Hd)_k = x_kᵀ(W u)/n with u = [X 1] d, so a step keeps
 /// W u current and nothing else: with column k and w ∘ x_k loaded the first time coordinate
 /// k is visited (together with H_kk, see [`WeightedColumns`]), a step is one scatter
-/// `Wu += δ (w ∘ x_k)` and (Hd)_k one gather. The direction d itself is kept as coordinates; u = [X 1] d is
-/// rebuilt once, when the line search first asks for f(x + αd).
+/// `Wu += δ (w ∘ x_k)` and (Hd)_k one gather. The direction d itself is kept as
+/// coordinates; u = [X 1] d is rebuilt once, when the line search first asks for f(x + αd).
 struct LogisticModel<'a> {
     loss: &'a Logistic,
     eta: Vec<f64>,
