@@ -1,8 +1,10 @@
 //! Which optional inner-loop strategies of Newton coordinate descent suit a local model.
 //!
-//! Both strategies below speed up the regression losses and were measured to slow down the
-//! log-det losses, so a model opts in through [`LocalModel::inner_loop_hints`]; a loss
-//! that does not override it gets the plain inner loop.
+//! Both strategies below speed up logistic regression and were measured to slow down the
+//! log-det losses; on least squares they changed nothing measurable (the benchmark inner
+//! loops settle within a few sweeps). So a model opts in through
+//! [`LocalModel::inner_loop_hints`]; a loss that does not override it (least squares,
+//! precision, CRF, downstream losses) gets the plain inner loop.
 //!
 //! [`LocalModel::inner_loop_hints`]: super::LocalModel::inner_loop_hints
 
@@ -11,7 +13,7 @@
 pub struct InnerLoopHints {
     /// Adaptive successive over-relaxation of slow inner sweeps
     /// (`CdOptions::relaxation = None`). Suits Hessians Xᵀ W X of weakly coupled sparse
-    /// columns: sparse 20000 × 50000 logistic, 61 → 37 sweeps. On the precision loss
+    /// columns that need many sweeps: sparse 20000 × 50000 logistic, 61 → 37 sweeps. On the precision loss
     /// (AR(1), p = 1000) it slowed the solve from 5.4 s to 8.5 s (ω ≤ 1.5) or past 40 s
     /// (ω ≤ 1.8).
     pub over_relaxation: bool,

@@ -16,7 +16,7 @@
 //! s²λ₂‖b‖²/2 to the dual's quadratic term.
 
 use super::glm::LinearData;
-use super::{InnerLoopHints, LocalModel, Loss};
+use super::{LocalModel, Loss};
 use crate::design::Design;
 use crate::error::Result;
 use crate::penalty::ResolvedPenalty;
@@ -225,12 +225,6 @@ impl LocalModel for LsModel<'_> {
     }
     fn clear(&mut self) {
         self.u.iter_mut().for_each(|v| *v = 0.0);
-    }
-    fn inner_loop_hints(&self) -> InnerLoopHints {
-        InnerLoopHints {
-            over_relaxation: true,
-            cold_start_working_set: false,
-        }
     }
     fn value_along(&mut self, alpha: f64) -> Option<f64> {
         let s: f64 = self
