@@ -24,12 +24,14 @@
 //!   driven by 2 inputs), λ_Λ = λ_Θ = 0.05; crf-correlated: p = 150 inputs with AR(1)
 //!   correlation 0.8 between neighbours (like hourly weather), q = 80 outputs (Λ: 3240
 //!   coordinates, Θ: 12 000), n = 1000, chain off-diagonal −0.7 (strongly correlated
-//!   errors, as in multi-site forecasts).
+//!   errors, as in multi-site forecasts); crf-wide: p = 3000 independent inputs, q = 100
+//!   outputs, n = 1000 (Θ: 300 000 coordinates, more inputs than samples), chain
+//!   off-diagonal −0.5, same λ (a denser solution: about 43 000 non-zeros).
 //!
 //! Environment: `ELLONE_BENCH_LOSSES` (comma-separated subset of
 //! "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,
-//! precision,precision-dense,precision-ar1,crf,crf-correlated"; default all), `ELLONE_BENCH_BUDGET` (seconds per
-//! solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
+//! precision,precision-dense,precision-ar1,crf,crf-correlated,crf-wide"; default all),
+//! `ELLONE_BENCH_BUDGET` (seconds per solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
 //! target/bench-baselines), `ELLONE_BENCH_SOLVERS` (baselines to run besides Newton-CD,
 //! default "fista,admm,owl-qn").
 
@@ -260,7 +262,7 @@ fn main() {
     // `cargo bench` passes `--bench`; nothing else to parse.
     let losses = std::env::var("ELLONE_BENCH_LOSSES").unwrap_or_else(|_| {
         "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,\
-             precision,precision-dense,precision-ar1,crf,crf-correlated"
+             precision,precision-dense,precision-ar1,crf,crf-correlated,crf-wide"
             .into()
     });
     let budget: f64 = std::env::var("ELLONE_BENCH_BUDGET")
@@ -289,6 +291,7 @@ fn main() {
             "logistic-illcond" => linear_problem(true, 1000, 2000, 0.99, 0.005),
             "crf" => crf_problem(45, (400, 40, 45), 0.0, 0.5),
             "crf-correlated" => crf_problem(46, (1000, 150, 80), 0.8, 0.7),
+            "crf-wide" => crf_problem(47, (1000, 3000, 100), 0.0, 0.5),
             other => {
                 eprintln!("unknown loss '{other}' in ELLONE_BENCH_LOSSES; skipped");
                 continue;

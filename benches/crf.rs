@@ -19,7 +19,9 @@
 
 use criterion::{criterion_group, Criterion};
 use ellone::crf::{Alternating, CrfData, CrfLoss, InputMode};
-use ellone::solver::{Control, Fista, NewtonCd, Observer, Solver, SolverOptions, TraceRecord};
+use ellone::solver::{
+    Control, Fista, NewtonCd, Observer, Owlqn, Solver, SolverOptions, TraceRecord,
+};
 use ellone::{Loss, Penalty};
 use ndarray::Array2;
 use rand::{rngs::StdRng, RngExt, SeedableRng};
@@ -158,7 +160,7 @@ fn report() {
                 alt.seconds / joint.seconds
             );
         }
-        if methods.contains("fista") {
+        if methods.contains("fista") || methods.contains("owlqn") {
             // Accuracy of the joint solution: F_joint − F*, with F* from a tight joint solve.
             let tight = NewtonCd::new(SolverOptions {
                 tol: 1e-11,
@@ -167,28 +169,37 @@ fn report() {
             .solve(&loss, &pen)
             .unwrap();
             let gap = (joint.objective - tight.objective).max(1e-12 * tight.objective.abs());
-            let fista = Fista::new(SolverOptions {
+            let capped = SolverOptions {
                 max_iter: 1_000_000,
                 time_limit: Some(Duration::from_secs_f64(cap)),
                 ..Default::default()
-            });
-            let mut stop = StopAt {
-                target: tight.objective + gap,
             };
-            let f = fista
-                .solve_observed(&loss, &pen, None, Some(&mut stop))
-                .unwrap();
-            let reached = f.objective <= tight.objective + gap;
-            println!(
-                "  fista       {:8.3} s ({} iters, {}), F = {:.12}, target F* + {:.1e}; fista/joint = {:.1}{}",
-                f.seconds,
-                f.iterations,
-                f.status.as_str(),
-                f.objective,
-                gap,
-                f.seconds / joint.seconds,
-                if reached { "" } else { " (lower bound: FISTA did not reach the target)" }
-            );
+            let mut baselines: Vec<(&str, Box<dyn Solver>)> = Vec::new();
+            if methods.contains("fista") {
+                baselines.push(("fista", Box::new(Fista::new(capped.clone()))));
+            }
+            if methods.contains("owlqn") {
+                baselines.push(("owl-qn", Box::new(Owlqn::new(capped.clone()))));
+            }
+            for (name, solver) in baselines {
+                let mut stop = StopAt {
+                    target: tight.objective + gap,
+                };
+                let f = solver
+                    .solve_observed(&loss, &pen, None, Some(&mut stop))
+                    .unwrap();
+                let reached = f.objective <= tight.objective + gap;
+                println!(
+                    "  {name:<11} {:8.3} s ({} iters, {}), F = {:.12}, target F* + {:.1e}; {name}/joint = {:.1}{}",
+                    f.seconds,
+                    f.iterations,
+                    f.status.as_str(),
+                    f.objective,
+                    gap,
+                    f.seconds / joint.seconds,
+                    if reached { "" } else { " (lower bound: the target was not reached)" }
+                );
+            }
         }
     }
 }
