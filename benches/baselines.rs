@@ -26,17 +26,24 @@
 //!   coordinates, Θ: 12 000), n = 1000, chain off-diagonal −0.7 (strongly correlated
 //!   errors, as in multi-site forecasts); crf-wide: p = 3000 independent inputs, q = 100
 //!   outputs, n = 1000 (Θ: 300 000 coordinates, more inputs than samples), chain
-//!   off-diagonal −0.5, same λ (a denser solution: about 43 000 non-zeros).
+//!   off-diagonal −0.5, same λ (a denser solution: about 43 000 non-zeros); crf-large: the
+//!   p = 3000, q = 100, n = 1000 problem of the `crf` size scan (benches/common/crf_sizes.rs:
+//!   sparse B on 2% of the inputs, AR(1) output noise, λ at 0.3 of the start point's
+//!   optimality bound; about 740 non-zeros).
 //!
 //! Environment: `ELLONE_BENCH_LOSSES` (comma-separated subset of
 //! "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,
-//! precision,precision-dense,precision-ar1,crf,crf-correlated,crf-wide"; default all),
+//! precision,precision-dense,precision-ar1,crf,crf-correlated,crf-wide,crf-large"; default
+//! all),
 //! `ELLONE_BENCH_BUDGET` (seconds per solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
 //! target/bench-baselines), `ELLONE_BENCH_SOLVERS` (baselines to run besides Newton-CD,
 //! default "fista,admm,owl-qn").
 
 #[path = "common/sparse_graph.rs"]
 mod sparse_graph;
+
+#[path = "common/crf_sizes.rs"]
+mod crf_sizes;
 
 use ellone::crf::{CrfData, CrfLoss, InputMode};
 use ellone::linalg;
@@ -262,7 +269,7 @@ fn main() {
     // `cargo bench` passes `--bench`; nothing else to parse.
     let losses = std::env::var("ELLONE_BENCH_LOSSES").unwrap_or_else(|_| {
         "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,\
-             precision,precision-dense,precision-ar1,crf,crf-correlated,crf-wide"
+             precision,precision-dense,precision-ar1,crf,crf-correlated,crf-wide,crf-large"
             .into()
     });
     let budget: f64 = std::env::var("ELLONE_BENCH_BUDGET")
@@ -292,6 +299,10 @@ fn main() {
             "crf" => crf_problem(45, (400, 40, 45), 0.0, 0.5),
             "crf-correlated" => crf_problem(46, (1000, 150, 80), 0.8, 0.7),
             "crf-wide" => crf_problem(47, (1000, 3000, 100), 0.0, 0.5),
+            "crf-large" => (
+                Box::new(crf_sizes::problem(1000, 3000, 100, 1)) as Box<dyn Loss>,
+                Penalty::l1(1.0).expect("valid λ"),
+            ),
             other => {
                 eprintln!("unknown loss '{other}' in ELLONE_BENCH_LOSSES; skipped");
                 continue;

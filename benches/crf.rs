@@ -17,57 +17,16 @@
 //! λ_Θ = 0.3·max|2 S_xy| and λ_Λ = 0.3·max_{k≠l}|S_yy,kl| (fractions of the values at which
 //! the start point is optimal).
 
+#[path = "common/crf_sizes.rs"]
+mod crf_sizes;
+
 use criterion::{criterion_group, Criterion};
-use ellone::crf::{Alternating, CrfData, CrfLoss, InputMode};
+use ellone::crf::Alternating;
 use ellone::solver::{
     Control, Fista, NewtonCd, Observer, Owlqn, Solver, SolverOptions, TraceRecord,
 };
 use ellone::{Loss, Penalty};
-use ndarray::Array2;
-use rand::{rngs::StdRng, RngExt, SeedableRng};
-use rand_distr::{Distribution, StandardNormal};
 use std::time::{Duration, Instant};
-
-fn problem(n: usize, p: usize, q: usize, seed: u64) -> CrfLoss {
-    let mut rng = StdRng::seed_from_u64(seed);
-    let x = Array2::from_shape_fn((n, p), |_| StandardNormal.sample(&mut rng));
-    let mut b = Array2::<f64>::zeros((p, q));
-    for i in 0..p {
-        if rng.random::<f64>() < 0.02 {
-            for j in 0..q {
-                if rng.random::<f64>() < 0.3 {
-                    let v: f64 = StandardNormal.sample(&mut rng);
-                    b[[i, j]] = v;
-                }
-            }
-        }
-    }
-    let mut y = ellone::linalg::matmul(x.view(), b.view());
-    for i in 0..n {
-        let mut prev = 0.0;
-        for j in 0..q {
-            let z: f64 = StandardNormal.sample(&mut rng);
-            prev = 0.6 * prev + z;
-            y[[i, j]] += prev;
-        }
-    }
-    let data = CrfData::new(x.view(), y.view(), false, false, InputMode::Auto).unwrap();
-    let probe = CrfLoss::new(data.clone(), 0.0, 0.0).unwrap();
-    let nl = probe.precision_coordinates();
-    let mut g = vec![0.0; probe.dim()];
-    probe.gradient(&probe.start(), &mut g);
-    let lt = 0.3 * g[nl..].iter().fold(0.0f64, |a, v| a.max(v.abs()));
-    let syy = data.syy();
-    let mut off = 0.0f64;
-    for k in 0..q {
-        for l in 0..q {
-            if k != l {
-                off = off.max(syy[[k, l]].abs());
-            }
-        }
-    }
-    CrfLoss::new(data, 0.3 * off, lt).unwrap()
-}
 
 const SMALL: [(usize, usize, usize); 2] = [(200, 200, 20), (500, 1000, 50)];
 const ALL: [(usize, usize, usize); 4] = [
@@ -83,7 +42,7 @@ fn bench(c: &mut Criterion) {
     group.sample_size(10);
     group.measurement_time(Duration::from_secs(5));
     for (n, p, q) in SMALL {
-        let loss = problem(n, p, q, 1);
+        let loss = crf_sizes::problem(n, p, q, 1);
         let id = format!("n{n}_p{p}_q{q}");
         group.bench_function(format!("joint/{id}"), |b| {
             b.iter(|| NewtonCd::default().solve(&loss, &pen).unwrap())
@@ -130,7 +89,7 @@ fn report() {
             continue;
         }
         let t = Instant::now();
-        let loss = problem(n, p, q, 1);
+        let loss = crf_sizes::problem(n, p, q, 1);
         println!(
             "({n}, {p}, {q}), {} parameters, setup {:.2} s",
             loss.dim(),
