@@ -40,7 +40,7 @@
 use super::loss::{sandwich, CrfLoss};
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky, matmul};
-use crate::loss::LocalModel;
+use crate::loss::{InnerLoopHints, LocalModel};
 use ndarray::Array2;
 
 const NONE: u32 = u32::MAX;
@@ -438,6 +438,17 @@ impl LocalModel for CrfLocal<'_> {
     /// H[(i,j),(i',j')] = 2 S_xx,ii' Σ_jj'
     /// ```
     ///
+    /// The first Newton step from a cold start otherwise frees every input–output pair whose
+    /// gradient exceeds λ_Θ (157 000 of 300 000 on a p = 3000, q = 100 benchmark) and
+    /// lands far from the solution; with the cold-start working set the p = 3000 races ran
+    /// 37 s → 16.5 s (dense solution) and 0.15 s → 0.084 s (sparse solution).
+    fn inner_loop_hints(&self) -> InnerLoopHints {
+        InnerLoopHints {
+            over_relaxation: false,
+            cold_start_working_set: true,
+        }
+    }
+
     /// (m_kl = 2 off the diagonal, 1 on it; the pair sum has one term when c = d).
     fn hessian_block(&mut self, idx: &[usize]) -> Vec<f64> {
         let m = idx.len();
