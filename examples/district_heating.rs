@@ -31,11 +31,25 @@ fn main() {
 #[cfg(feature = "cli")]
 mod app {
     use ellone::scenario::figures::write_figures;
-    use ellone::scenario::pipeline::{run_with, PipelineConfig, Progress, Report};
+    use ellone::scenario::pipeline::{run_with, ModelScores, PipelineConfig, Progress, Report};
     use indicatif::{ProgressBar, ProgressStyle};
     use std::io::IsTerminal;
     use std::path::PathBuf;
     use std::time::Instant;
+
+    /// One row of the test-year score table.
+    fn print_scores(m: &ModelScores) {
+        println!(
+            "  {:<32} {:>8.4} {:>14.2} {:>12.4} {:>8.4} {:>12.2} {:>9.1}%",
+            m.name,
+            m.rmse,
+            m.nll,
+            m.energy_score,
+            m.crps,
+            m.reserve,
+            100.0 * m.coverage
+        );
+    }
 
     /// A terminal progress bar per step (plain lines when stderr is not a terminal).
     struct Bars {
@@ -200,16 +214,7 @@ mod app {
             "model", "RMSE", "NLL (nats/day)", "energy sc.", "CRPS", "reserve q95", "coverage"
         );
         for m in &r.models {
-            println!(
-                "  {:<32} {:>8.4} {:>14.2} {:>12.4} {:>8.4} {:>12.2} {:>9.1}%",
-                m.name,
-                m.rmse,
-                m.nll,
-                m.energy_score,
-                m.crps,
-                m.reserve,
-                100.0 * m.coverage
-            );
+            print_scores(m);
         }
         println!(
             "  (reserve: mean over test days of the 95th percentile of the network's daily peak \
@@ -220,16 +225,7 @@ mod app {
             "\nEnergy-score decomposition (swap the mean and the covariance of CRF and lasso):"
         );
         for m in &r.swaps {
-            println!(
-                "  {:<32} {:>8.4} {:>14.2} {:>12.4} {:>8.4} {:>12.2} {:>9.1}%",
-                m.name,
-                m.rmse,
-                m.nll,
-                m.energy_score,
-                m.crps,
-                m.reserve,
-                100.0 * m.coverage
-            );
+            print_scores(m);
         }
         let s = &r.structure;
         println!(
