@@ -428,16 +428,6 @@ impl LocalModel for CrfLocal<'_> {
         self.cache = None;
     }
 
-    /// The exact block H_AA from the closed forms of the module docs, O(|A|²) after
-    /// registering the Θ rows of A. With Λ coordinates u = (k, l), v = (c, d) (each standing
-    /// for E = e_ce_dᵀ + e_de_cᵀ, or e_ce_cᵀ on the diagonal) and Θ coordinates (i, j):
-    ///
-    /// ```text
-    /// H[(k,l),(c,d)] = m_kl Σ_{(c',d') ∈ {(c,d),(d,c)}} Σ_kc'Σ_d'l + Σ_kc'Φ_d'l + Φ_kc'Σ_d'l
-    /// H[(i,j),(c,d)] = −2 Σ_{(c',d')} M_ic'Σ_d'j
-    /// H[(i,j),(i',j')] = 2 S_xx,ii' Σ_jj'
-    /// ```
-    ///
     /// The first Newton step from a cold start otherwise frees every input–output pair whose
     /// gradient exceeds λ_Θ (157 000 of 300 000 on a p = 3000, q = 100 benchmark) and
     /// lands far from the solution; with the cold-start working set the p = 3000 races ran
@@ -449,6 +439,16 @@ impl LocalModel for CrfLocal<'_> {
         }
     }
 
+    /// The exact block H_AA from the closed forms of the module docs, O(|A|²) after
+    /// registering the Θ rows of A. With Λ coordinates u = (k, l), v = (c, d) (each standing
+    /// for E = e_ce_dᵀ + e_de_cᵀ, or e_ce_cᵀ on the diagonal) and Θ coordinates (i, j):
+    ///
+    /// ```text
+    /// H[(k,l),(c,d)] = m_kl Σ_{(c',d') ∈ {(c,d),(d,c)}} Σ_kc'Σ_d'l + Σ_kc'Φ_d'l + Φ_kc'Σ_d'l
+    /// H[(i,j),(c,d)] = −2 Σ_{(c',d')} M_ic'Σ_d'j
+    /// H[(i,j),(i',j')] = 2 S_xx,ii' Σ_jj'
+    /// ```
+    ///
     /// (m_kl = 2 off the diagonal, 1 on it; the pair sum has one term when c = d).
     fn hessian_block(&mut self, idx: &[usize]) -> Vec<f64> {
         let m = idx.len();

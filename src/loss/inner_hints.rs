@@ -14,9 +14,9 @@
 pub struct InnerLoopHints {
     /// Adaptive successive over-relaxation of slow inner sweeps
     /// (`CdOptions::relaxation = None`). Suits Hessians Xᵀ W X of weakly coupled sparse
-    /// columns that need many sweeps: sparse 20000 × 50000 logistic, 61 → 37 sweeps. On the precision loss
-    /// (AR(1), p = 1000) it slowed the solve from 5.4 s to 8.5 s (ω ≤ 1.5) or past 40 s
-    /// (ω ≤ 1.8).
+    /// columns that need many sweeps: sparse 20000 × 50000 logistic, 61 → 37 sweeps. On
+    /// the precision loss (AR(1), p = 1000) it slowed the solve from 5.4 s to 8.5 s
+    /// (ω ≤ 1.5) or past 40 s (ω ≤ 1.8).
     pub over_relaxation: bool,
     /// A cold-start working set for the first outer iteration
     /// (`CdOptions::first_step_working_set`): only the strongest violators enter the first

@@ -137,8 +137,16 @@ impl Logistic {
             .zip(&self.data.y)
             .map(|(&e, &y)| sigmoid(e) - y)
             .collect();
-        self.data.tmatvec(&resid, g);
-        let n = eta.len() as f64;
+        self.gradient_of_residual(&resid, None, g);
+    }
+
+    /// g = [X 1]ᵀ(π − y)/n from the residual π − y, on `subset` only when one is given.
+    fn gradient_of_residual(&self, resid: &[f64], subset: Option<&[usize]>, g: &mut [f64]) {
+        match subset {
+            Some(s) => self.data.tmatvec_subset(resid, s, g),
+            None => self.data.tmatvec(resid, g),
+        }
+        let n = resid.len() as f64;
         g.iter_mut().for_each(|v| *v /= n);
     }
 }
@@ -252,11 +260,7 @@ impl Logistic {
         let pi: Vec<f64> = eta.iter().map(|&e| sigmoid(e)).collect();
         let resid: Vec<f64> = pi.iter().zip(&self.data.y).map(|(&p, &y)| p - y).collect();
         let mut g = vec![0.0; self.dim()];
-        match subset {
-            Some(s) => self.data.tmatvec_subset(&resid, s, &mut g),
-            None => self.data.tmatvec(&resid, &mut g),
-        }
-        g.iter_mut().for_each(|v| *v /= n as f64);
+        self.gradient_of_residual(&resid, subset, &mut g);
         let w = pi.iter().map(|&p| p * (1.0 - p)).collect();
         let m = self.dim();
         Ok(Box::new(LogisticModel {

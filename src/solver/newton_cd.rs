@@ -423,7 +423,8 @@ fn cold_start_entry(candidates: &[usize], x: &[f64], g: &[f64], pen: &ResolvedPe
         if x[k] != 0.0 {
             return 1.0;
         }
-        let r = (g[k] + pen.l2[k] * x[k]).abs() / pen.l1[k];
+        // x_k = 0 here, so the ℓ2 term adds nothing to the gradient.
+        let r = g[k].abs() / pen.l1[k];
         if r > r_max {
             r_max = r;
         }
