@@ -15,6 +15,8 @@ pub(crate) struct LinearData {
     pub(crate) intercept: bool,
     /// ‖x_k‖² per coordinate (n for the intercept).
     pub(crate) col_sq: Vec<f64>,
+    /// Σ_i x_ik per feature (for centring correlations without a pass over the data).
+    pub(crate) col_sum: Vec<f64>,
 }
 
 impl LinearData {
@@ -31,11 +33,13 @@ impl LinearData {
         if intercept {
             col_sq.push(x.nrows() as f64);
         }
+        let col_sum = (0..x.ncols()).map(|j| x.col_sum(j)).collect();
         Ok(Self {
             x,
             y,
             intercept,
             col_sq,
+            col_sum,
         })
     }
 
@@ -100,6 +104,18 @@ impl LinearData {
         for &k in subset {
             out[k] = self.col_dot(k, v);
         }
+    }
+
+    /// The correlations x_jᵀ(ρ − ρ̄)/n of every feature with a residual ρ (centred when
+    /// there is an intercept, ρ̄ = Σρ/n; not centred otherwise), from the gradient
+    /// g = −[X 1]ᵀρ/n of a loss whose gradient has that form (least squares: ρ = y − η;
+    /// logistic: ρ = y − σ(η)). Since g₀ = −ρ̄ for the intercept,
+    /// x_jᵀ(ρ − ρ̄)/n = −g_j + g₀ · (Σ_i x_ij)/n: no pass over the data.
+    pub(crate) fn correlations_from_gradient(&self, g: &[f64]) -> Vec<f64> {
+        let p = self.p();
+        let n = self.n() as f64;
+        let shift = if self.intercept { g[p] / n } else { 0.0 };
+        (0..p).map(|j| -g[j] + shift * self.col_sum[j]).collect()
     }
 
     /// The largest feasible scaling s ∈ [0, 1] of a dual direction with correlations

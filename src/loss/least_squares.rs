@@ -88,6 +88,35 @@ impl LeastSquares {
     }
 }
 
+impl LeastSquares {
+    /// The gap from the residual r = y − η at x and the correlations x_jᵀ(r − r̄)/n
+    /// (centred when there is an intercept; see the module notes for the dual point).
+    fn gap_from(
+        &self,
+        x: &[f64],
+        mut r: Vec<f64>,
+        mut corr: Vec<f64>,
+        pen: &ResolvedPenalty,
+    ) -> Option<f64> {
+        let n = self.data.n() as f64;
+        let primal = half_mean_sq(&r) + pen.value(x);
+        if self.data.intercept {
+            let mean = r.iter().sum::<f64>() / n;
+            r.iter_mut().for_each(|v| *v -= mean);
+        }
+        let mut l2_norm = 0.0;
+        for (j, c) in corr.iter_mut().enumerate() {
+            *c -= pen.l2[j] * x[j];
+            l2_norm += pen.l2[j] * x[j] * x[j];
+        }
+        let s = self.data.dual_scale(&corr, &pen.l1)?;
+        let ry: f64 = r.iter().zip(&self.data.y).map(|(a, b)| a * b).sum();
+        let rr: f64 = r.iter().map(|v| v * v).sum();
+        let dual = s * ry / n - s * s * rr / (2.0 * n) - 0.5 * s * s * l2_norm;
+        Some(primal - dual)
+    }
+}
+
 fn half_mean_sq(r: &[f64]) -> f64 {
     0.5 * r.iter().map(|v| v * v).sum::<f64>() / r.len() as f64
 }
@@ -136,26 +165,31 @@ impl Loss for LeastSquares {
     }
 
     fn duality_gap(&self, x: &[f64], pen: &ResolvedPenalty) -> Option<f64> {
+        let r = self.residual(x);
         let n = self.data.n() as f64;
-        let p = self.data.p();
-        let mut r = self.residual(x);
-        if self.data.intercept {
-            let mean = r.iter().sum::<f64>() / n;
-            r.iter_mut().for_each(|v| *v -= mean);
+        let shift = if self.data.intercept {
+            r.iter().sum::<f64>() / n
+        } else {
+            0.0
+        };
+        let centred: Vec<f64> = r.iter().map(|v| v - shift).collect();
+        let mut corr = vec![0.0; self.data.p()];
+        self.data.x.tmatvec(&centred, &mut corr);
+        corr.iter_mut().for_each(|c| *c /= n);
+        self.gap_from(x, r, corr, pen)
+    }
+
+    fn duality_gap_with_gradient(
+        &self,
+        x: &[f64],
+        g: &[f64],
+        pen: &ResolvedPenalty,
+    ) -> Option<f64> {
+        if g.len() != self.dim() {
+            return self.duality_gap(x, pen);
         }
-        let mut corr = vec![0.0; p];
-        self.data.x.tmatvec(&r, &mut corr);
-        let mut l2_norm = 0.0;
-        for j in 0..p {
-            corr[j] = corr[j] / n - pen.l2[j] * x[j];
-            l2_norm += pen.l2[j] * x[j] * x[j];
-        }
-        let s = self.data.dual_scale(&corr, &pen.l1)?;
-        let ry: f64 = r.iter().zip(&self.data.y).map(|(a, b)| a * b).sum();
-        let rr: f64 = r.iter().map(|v| v * v).sum();
-        let dual = s * ry / n - s * s * rr / (2.0 * n) - 0.5 * s * s * l2_norm;
-        let primal = self.value(x)? + pen.value(x);
-        Some(primal - dual)
+        let corr = self.data.correlations_from_gradient(g);
+        self.gap_from(x, self.residual(x), corr, pen)
     }
 
     fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {

@@ -43,6 +43,20 @@ pub fn sigmoid(eta: f64) -> f64 {
     }
 }
 
+/// (σ(η), softplus(η)) from one exponential t = e^{−|η|}: σ = 1/(1 + t) for η ≥ 0 and
+/// t/(1 + t) otherwise, softplus = max(η, 0) + log1p(t); the same values, bit for bit, as
+/// [`sigmoid`] and [`softplus`].
+#[inline]
+fn sigmoid_and_softplus(eta: f64) -> (f64, f64) {
+    let t = (-eta.abs()).exp();
+    let s = if eta >= 0.0 {
+        1.0 / (1.0 + t)
+    } else {
+        t / (1.0 + t)
+    };
+    (s, eta.max(0.0) + t.ln_1p())
+}
+
 /// u log u + (1 − u) log(1 − u), with 0 log 0 = 0.
 fn neg_entropy(u: f64) -> f64 {
     let t = |v: f64| if v > 0.0 { v * v.ln() } else { 0.0 };
@@ -140,6 +154,53 @@ impl Logistic {
         self.gradient_of_residual(&resid, None, g);
     }
 
+    /// ρ = y − σ(η), centred when there is an intercept.
+    fn centred_residual(&self, eta: &[f64]) -> Vec<f64> {
+        let mut rho: Vec<f64> = eta
+            .iter()
+            .zip(&self.data.y)
+            .map(|(&e, &y)| y - sigmoid(e))
+            .collect();
+        if self.data.intercept {
+            let mean = rho.iter().sum::<f64>() / rho.len() as f64;
+            rho.iter_mut().for_each(|v| *v -= mean);
+        }
+        rho
+    }
+
+    /// The gap at x from η = Xb + b₀, the centred residual ρ (see `centred_residual`) and
+    /// the correlations x_jᵀρ/n of the features (see the module notes for the dual point).
+    fn gap_from(
+        &self,
+        x: &[f64],
+        eta: &[f64],
+        rho: &[f64],
+        corr: &[f64],
+        pen: &ResolvedPenalty,
+    ) -> Option<f64> {
+        let n = self.data.n() as f64;
+        let mut s = self.data.dual_scale(corr, &pen.l1)?;
+        // Keep u = y − sρ inside [0, 1].
+        for (&r, &y) in rho.iter().zip(&self.data.y) {
+            let ok_sign = if y == 1.0 { r >= 0.0 } else { r <= 0.0 };
+            if !ok_sign {
+                s = 0.0;
+                break;
+            }
+            if r != 0.0 {
+                s = s.min(1.0 / r.abs());
+            }
+        }
+        let dual = -rho
+            .iter()
+            .zip(&self.data.y)
+            .map(|(&r, &y)| neg_entropy(y - s * r))
+            .sum::<f64>()
+            / n;
+        let primal = self.value_at_eta(eta) + pen.value(x);
+        Some(primal - dual)
+    }
+
     /// g = [X 1]ᵀ(π − y)/n from the residual π − y, on `subset` only when one is given.
     fn gradient_of_residual(&self, resid: &[f64], subset: Option<&[usize]>, g: &mut [f64]) {
         match subset {
@@ -190,43 +251,30 @@ impl Loss for Logistic {
 
     fn duality_gap(&self, x: &[f64], pen: &ResolvedPenalty) -> Option<f64> {
         if pen.l2.iter().any(|&v| v > 0.0) {
-            return None;
+            return None; // no clean dual with the ℓ2 term
         }
         let n = self.data.n() as f64;
-        let p = self.data.p();
         let eta = self.data.eta(x);
-        let mut rho: Vec<f64> = eta
-            .iter()
-            .zip(&self.data.y)
-            .map(|(&e, &y)| y - sigmoid(e))
-            .collect();
-        if self.data.intercept {
-            let mean = rho.iter().sum::<f64>() / n;
-            rho.iter_mut().for_each(|v| *v -= mean);
-        }
-        let mut corr = vec![0.0; p];
+        let rho = self.centred_residual(&eta);
+        let mut corr = vec![0.0; self.data.p()];
         self.data.x.tmatvec(&rho, &mut corr);
         corr.iter_mut().for_each(|c| *c /= n);
-        let mut s = self.data.dual_scale(&corr, &pen.l1)?;
-        // Keep u = y − sρ inside [0, 1].
-        for (&r, &y) in rho.iter().zip(&self.data.y) {
-            let ok_sign = if y == 1.0 { r >= 0.0 } else { r <= 0.0 };
-            if !ok_sign {
-                s = 0.0;
-                break;
-            }
-            if r != 0.0 {
-                s = s.min(1.0 / r.abs());
-            }
+        self.gap_from(x, &eta, &rho, &corr, pen)
+    }
+
+    fn duality_gap_with_gradient(
+        &self,
+        x: &[f64],
+        g: &[f64],
+        pen: &ResolvedPenalty,
+    ) -> Option<f64> {
+        if g.len() != self.dim() || pen.l2.iter().any(|&v| v > 0.0) {
+            return self.duality_gap(x, pen);
         }
-        let dual = -rho
-            .iter()
-            .zip(&self.data.y)
-            .map(|(&r, &y)| neg_entropy(y - s * r))
-            .sum::<f64>()
-            / n;
-        let primal = self.value_at_eta(&eta) + pen.value(x);
-        Some(primal - dual)
+        let eta = self.data.eta(x);
+        let rho = self.centred_residual(&eta);
+        let corr = self.data.correlations_from_gradient(g);
+        self.gap_from(x, &eta, &rho, &corr, pen)
     }
 
     fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
@@ -256,8 +304,18 @@ impl Logistic {
             let b0 = x[self.data.p()];
             eta.iter_mut().for_each(|e| *e += b0);
         }
-        // π = σ(η) once, for both the residual π − y and the weights π(1 − π).
-        let pi: Vec<f64> = eta.iter().map(|&e| sigmoid(e)).collect();
+        // π = σ(η) once, for both the residual π − y and the weights π(1 − π), with the
+        // loss terms softplus(η_i) − y_i η_i from the same exponential.
+        let mut total = 0.0;
+        let pi: Vec<f64> = eta
+            .iter()
+            .zip(&self.data.y)
+            .map(|(&e, &y)| {
+                let (p, sp) = sigmoid_and_softplus(e);
+                total += sp - y * e;
+                p
+            })
+            .collect();
         let resid: Vec<f64> = pi.iter().zip(&self.data.y).map(|(&p, &y)| p - y).collect();
         let mut g = vec![0.0; self.dim()];
         self.gradient_of_residual(&resid, subset, &mut g);
@@ -265,7 +323,7 @@ impl Logistic {
         let m = self.dim();
         Ok(Box::new(LogisticModel {
             loss: self,
-            f: self.value_at_eta(&eta),
+            f: total / n as f64,
             eta,
             g,
             w,
@@ -403,5 +461,23 @@ impl LocalModel for LogisticModel<'_> {
             })
             .sum();
         Some(s * self.inv_n)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn one_exponential_gives_the_same_sigmoid_and_softplus() {
+        let mut eta = vec![
+            0.0, -0.0, 1e-300, -1e-300, 36.7, -36.7, 745.0, -745.0, 1e3, -1e3,
+        ];
+        eta.extend((-400..=400).map(|i| f64::from(i) * 0.0731));
+        for e in eta {
+            let (s, sp) = sigmoid_and_softplus(e);
+            assert_eq!(s.to_bits(), sigmoid(e).to_bits(), "σ({e})");
+            assert_eq!(sp.to_bits(), softplus(e).to_bits(), "softplus({e})");
+        }
     }
 }

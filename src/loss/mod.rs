@@ -72,6 +72,19 @@ pub trait Loss: Send + Sync {
         None
     }
 
+    /// [`Loss::duality_gap`] at x when the caller already holds g = ∇f(x) (every
+    /// coordinate, the smooth loss only: no penalty terms). A loss whose dual point is
+    /// built from the gradient overrides this to skip its own pass over the data; the
+    /// default ignores `g`. The value is the same as `duality_gap` up to rounding.
+    fn duality_gap_with_gradient(
+        &self,
+        x: &[f64],
+        _g: &[f64],
+        penalty: &ResolvedPenalty,
+    ) -> Option<f64> {
+        self.duality_gap(x, penalty)
+    }
+
     /// The smallest λ for which x = [`Loss::start`]-with-penalised-coordinates-zero is
     /// optimal, where the loss knows it (used for grids and scales).
     fn lambda_max(&self, _penalty: &ResolvedPenalty) -> Option<f64> {
@@ -215,6 +228,14 @@ macro_rules! forward_loss_methods {
             penalty: &$crate::penalty::ResolvedPenalty,
         ) -> Option<f64> {
             self.$field.duality_gap(x, penalty)
+        }
+        fn duality_gap_with_gradient(
+            &self,
+            x: &[f64],
+            g: &[f64],
+            penalty: &$crate::penalty::ResolvedPenalty,
+        ) -> Option<f64> {
+            self.$field.duality_gap_with_gradient(x, g, penalty)
         }
         fn lambda_max(&self, penalty: &$crate::penalty::ResolvedPenalty) -> Option<f64> {
             self.$field.lambda_max(penalty)

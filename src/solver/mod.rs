@@ -250,6 +250,35 @@ pub fn gradient_scale(loss: &dyn Loss) -> f64 {
     let x0 = loss.start();
     let mut g = vec![0.0; x0.len()];
     loss.gradient(&x0, &mut g);
+    scale_of(loss, &g)
+}
+
+/// Where a solve takes the scale max(1, ‖∇f(x₀)‖∞) of its relative KKT test from.
+#[derive(Debug, Clone, Copy)]
+pub(crate) enum Scale {
+    /// Given by the caller (a path solver computes it once instead of once per λ).
+    Known(f64),
+    /// Computed up front with one gradient at the loss's default start x₀.
+    AtStart,
+    /// Taken from the first gradient the solver computes, which must be at x₀ (a solve
+    /// without a starting point): saves the separate gradient pass of `AtStart`. The
+    /// solver calls [`Run::fix_scale`] before its first [`Run::check`].
+    FromFirstGradient,
+}
+
+impl Scale {
+    /// `FromFirstGradient` for a solve from the default start, `AtStart` otherwise.
+    pub(crate) fn deferred_unless(start: Option<&[f64]>) -> Self {
+        if start.is_none() {
+            Self::FromFirstGradient
+        } else {
+            Self::AtStart
+        }
+    }
+}
+
+/// The scale max(1, max_k |g_k|·residual_scale(k)) of a gradient g at x₀.
+fn scale_of(loss: &dyn Loss, g: &[f64]) -> f64 {
     g.iter()
         .enumerate()
         .fold(1.0f64, |a, (k, v)| a.max(v.abs() * loss.residual_scale(k)))
@@ -268,6 +297,9 @@ pub(crate) struct Run<'o> {
     /// Leave the duality gap out of the final solution (restricted solves inside a path,
     /// whose caller certifies the full problem itself).
     pub(crate) skip_gap: bool,
+    /// `tol_abs` still waits for [`Run::fix_scale`] (see [`Scale::FromFirstGradient`]).
+    scale_pending: bool,
+    tol: f64,
 }
 
 impl<'o> Run<'o> {
@@ -280,18 +312,18 @@ impl<'o> Run<'o> {
         opts: &SolverOptions,
         observer: Option<&'o mut dyn Observer>,
     ) -> Result<(Self, ResolvedPenalty, Vec<f64>)> {
-        Self::with_scale(loss, penalty, start, opts, observer, None)
+        Self::with_scale(loss, penalty, start, opts, observer, Scale::AtStart)
     }
 
-    /// As [`Run::new`], with the gradient scale ‖∇f(x₀)‖∞ supplied by the caller (a path
-    /// solver computes it once instead of once per λ).
+    /// As [`Run::new`], with the source of the gradient scale ‖∇f(x₀)‖∞ chosen by the
+    /// caller.
     pub(crate) fn with_scale(
         loss: &dyn Loss,
         penalty: &Penalty,
         start: Option<&[f64]>,
         opts: &SolverOptions,
         observer: Option<&'o mut dyn Observer>,
-        known_scale: Option<f64>,
+        scale: Scale,
     ) -> Result<(Self, ResolvedPenalty, Vec<f64>)> {
         opts.validate()?;
         let m = loss.dim();
@@ -316,15 +348,23 @@ impl<'o> Run<'o> {
             }
             None => x0.clone(),
         };
-        let scale = match known_scale {
-            Some(s) => s.max(1.0),
-            None => gradient_scale(loss),
+        let scale = match scale {
+            Scale::Known(s) => s.max(1.0),
+            Scale::AtStart => gradient_scale(loss),
+            Scale::FromFirstGradient if start.is_none() => f64::NAN,
+            Scale::FromFirstGradient => {
+                return Err(Error::InvalidArgument(
+                    "internal: a scale from the first gradient needs the default start".into(),
+                ))
+            }
         };
         let run = Run {
             start: Instant::now(),
             trace: Vec::new(),
             observer,
             tol_abs: opts.tol * if scale.is_finite() { scale } else { 1.0 },
+            scale_pending: scale.is_nan(),
+            tol: opts.tol,
             record_trace: opts.trace,
             max_iter: opts.max_iter,
             time_limit: opts.time_limit,
@@ -332,6 +372,16 @@ impl<'o> Run<'o> {
             skip_gap: false,
         };
         Ok((run, pen, x))
+    }
+
+    /// Fixes the KKT threshold from the gradient at x₀ when the scale was deferred
+    /// ([`Scale::FromFirstGradient`]); does nothing otherwise.
+    pub(crate) fn fix_scale(&mut self, loss: &dyn Loss, g_at_start: &[f64]) {
+        if self.scale_pending {
+            let scale = scale_of(loss, g_at_start);
+            self.tol_abs = self.tol * if scale.is_finite() { scale } else { 1.0 };
+            self.scale_pending = false;
+        }
     }
 
     pub(crate) fn seconds(&self) -> f64 {
@@ -384,9 +434,34 @@ impl<'o> Run<'o> {
         iterations: usize,
         inner: usize,
     ) -> Result<Solution> {
+        self.finish_with_gradient(solver, loss, pen, x, known, None, status, iterations, inner)
+    }
+
+    /// As [`Run::finish`], with ∇f(x) (every coordinate) when the solver holds it, which
+    /// lets the loss compute the duality gap without another pass over the data
+    /// ([`Loss::duality_gap_with_gradient`]).
+    #[allow(clippy::too_many_arguments)]
+    pub(crate) fn finish_with_gradient(
+        self,
+        solver: &str,
+        loss: &dyn Loss,
+        pen: &ResolvedPenalty,
+        x: Vec<f64>,
+        known: Option<(f64, f64)>,
+        gradient: Option<&[f64]>,
+        status: Status,
+        iterations: usize,
+        inner: usize,
+    ) -> Result<Solution> {
         let (objective, kkt, gap) = match known {
             Some((f, r)) if self.skip_gap => (f, r, None),
-            Some((f, r)) => (f, r, loss.duality_gap(&x, pen)),
+            Some((f, r)) => {
+                let gap = match gradient {
+                    Some(g) => loss.duality_gap_with_gradient(&x, g, pen),
+                    None => loss.duality_gap(&x, pen),
+                };
+                (f, r, gap)
+            }
             None => certify(loss, pen, &x).ok_or_else(|| {
                 Error::Numerical("the final iterate left the domain of the loss".into())
             })?,

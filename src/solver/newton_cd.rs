@@ -40,7 +40,7 @@
 //! line-search rule); "Proximal Newton-type methods for minimizing composite functions",
 //! SIAM J. Optimization, 2014 (inexact inner solves and their forcing terms).
 
-use super::{Run, Solution, Solver, SolverOptions, Status, TraceRecord};
+use super::{Run, Scale, Solution, Solver, SolverOptions, Status, TraceRecord};
 use crate::error::Result;
 use crate::loss::{LocalModel, Loss};
 use crate::penalty::{soft_threshold, Penalty, ResolvedPenalty};
@@ -217,7 +217,10 @@ impl NewtonCd {
             start,
             &self.options,
             observer,
-            working.map(|w| w.gradient_scale),
+            match working {
+                Some(w) => Scale::Known(w.gradient_scale),
+                None => Scale::deferred_unless(start),
+            },
         )?;
         run.skip_gap = working.is_some();
         let m = loss.dim();
@@ -242,6 +245,9 @@ impl NewtonCd {
                 None => loss.local_model(&x)?,
             };
             g.copy_from_slice(model.gradient());
+            if iteration == 0 {
+                run.fix_scale(loss, &g); // x is the default start if the scale was deferred
+            }
             let objective = model.value() + pen.value(&x);
             let kkt = candidates.iter().fold(0.0f64, |r, &k| {
                 let gk = g[k] + pen.l2[k] * x[k];
@@ -387,12 +393,15 @@ impl NewtonCd {
             }
             iteration += 1;
         };
-        run.finish(
+        // Every exit leaves g = ∇f(x) at the final x; over all coordinates unless the
+        // solve was restricted to a working set.
+        run.finish_with_gradient(
             "newton-cd",
             loss,
             &pen,
             x,
             Some(known),
+            working.is_none().then_some(g.as_slice()),
             status,
             iteration,
             inner_total,

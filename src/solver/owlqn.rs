@@ -27,7 +27,7 @@
 //! trial; [`Solution::inner`] counts gradient evaluations (data passes).
 
 use super::baseline::{dot, l1_value, record, smooth_part, start_value_grad, value_grad};
-use super::{Observer, Run, Solution, Solver, SolverOptions, Status};
+use super::{Observer, Run, Scale, Solution, Solver, SolverOptions, Status};
 use crate::error::{Error, Result};
 use crate::loss::Loss;
 use crate::penalty::{Penalty, ResolvedPenalty};
@@ -151,10 +151,18 @@ impl Solver for Owlqn {
                 self.owlqn.armijo
             )));
         }
-        let (mut run, pen, mut x) = Run::new(loss, penalty, start, &self.options, observer)?;
+        let (mut run, pen, mut x) = Run::with_scale(
+            loss,
+            penalty,
+            start,
+            &self.options,
+            observer,
+            Scale::deferred_unless(start),
+        )?;
         let m = loss.dim();
         let mut g = vec![0.0; m];
         let mut f = start_value_grad(loss, &x, &mut g)?;
+        run.fix_scale(loss, &g);
         let mut passes = 1usize;
         let mut gs = vec![0.0; m];
         let mut s_val = smooth_part(&pen, &x, f, &g, &mut gs);
