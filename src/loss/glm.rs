@@ -80,16 +80,6 @@ impl LinearData {
         }
     }
 
-    /// v ← v + a x_k.
-    #[inline]
-    pub(crate) fn col_axpy(&self, k: usize, a: f64, v: &mut [f64]) {
-        if self.is_intercept(k) {
-            v.iter_mut().for_each(|e| *e += a);
-        } else {
-            self.x.col_axpy(k, a, v);
-        }
-    }
-
     /// out_k ← x_kᵀ v for every coordinate (one pass over the data).
     pub(crate) fn tmatvec(&self, v: &[f64], out: &mut [f64]) {
         let p = self.p();

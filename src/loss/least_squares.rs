@@ -16,6 +16,7 @@
 //! s²λ₂‖b‖²/2 to the dual's quadratic term.
 
 use super::glm::LinearData;
+use super::weighted_columns::{ColumnPool, WeightedColumns};
 use super::{LocalModel, Loss};
 use crate::design::Design;
 use crate::error::Result;
@@ -24,9 +25,15 @@ use ndarray::ArrayView2;
 use sprs::CsMat;
 
 /// The least-squares loss on dense or sparse data, with an optional intercept.
+///
+/// Memory: Newton coordinate descent keeps compact copies of the sparse columns it has
+/// visited between iterations (row indices as `u32` plus values, at most about the size of
+/// the design again); they live as long as the loss (a clone starts without them).
 #[derive(Debug, Clone)]
 pub struct LeastSquares {
     data: LinearData,
+    /// Copies of visited sparse columns, reused by successive local models.
+    pool: ColumnPool,
 }
 
 impl LeastSquares {
@@ -39,6 +46,7 @@ impl LeastSquares {
     pub fn new(x: Design, y: Vec<f64>, intercept: bool) -> Result<Self> {
         Ok(Self {
             data: LinearData::new(x, y, intercept)?,
+            pool: ColumnPool::default(),
         })
     }
 
@@ -211,7 +219,18 @@ impl LeastSquares {
         x: &[f64],
         subset: Option<&[usize]>,
     ) -> Result<Box<dyn LocalModel + 'a>> {
-        let r = self.residual(x);
+        let cols = WeightedColumns::new(&self.data.x, &self.pool);
+        // r = y − X b − b₀, with X b from the stored columns.
+        let mut r = vec![0.0; self.data.n()];
+        cols.matvec(x, &mut r);
+        let b0 = if self.data.intercept {
+            x[self.data.p()]
+        } else {
+            0.0
+        };
+        for (ri, yi) in r.iter_mut().zip(&self.data.y) {
+            *ri = yi - (*ri + b0);
+        }
         let n = self.data.n() as f64;
         let mut g = vec![0.0; self.dim()];
         match subset {
@@ -221,6 +240,7 @@ impl LeastSquares {
         g.iter_mut().for_each(|v| *v = -*v / n);
         Ok(Box::new(LsModel {
             data: &self.data,
+            cols,
             f: half_mean_sq(&r),
             u: vec![0.0; r.len()],
             r,
@@ -230,9 +250,12 @@ impl LeastSquares {
     }
 }
 
-/// Local model of least squares: exact (the loss is quadratic).
+/// Local model of least squares: exact (the loss is quadratic). Sparse columns are read
+/// from compact copies made on their first visit (see [`WeightedColumns`]; no weights
+/// here), which streams through contiguous memory in the sweeps.
 struct LsModel<'a> {
     data: &'a LinearData,
+    cols: WeightedColumns<'a>,
     r: Vec<f64>,
     f: f64,
     g: Vec<f64>,
@@ -252,10 +275,20 @@ impl LocalModel for LsModel<'_> {
         self.data.col_sq[k] * self.inv_n
     }
     fn hd(&mut self, k: usize) -> f64 {
-        self.data.col_dot(k, &self.u) * self.inv_n
+        let dot = if self.data.is_intercept(k) {
+            self.u.iter().sum()
+        } else {
+            self.cols.keep(k);
+            self.cols.dot(k, &self.u)
+        };
+        dot * self.inv_n
     }
     fn step(&mut self, k: usize, delta: f64) {
-        self.data.col_axpy(k, delta, &mut self.u);
+        if self.data.is_intercept(k) {
+            self.u.iter_mut().for_each(|e| *e += delta);
+        } else {
+            self.cols.axpy(k, delta, &mut self.u);
+        }
     }
     fn clear(&mut self) {
         self.u.iter_mut().for_each(|v| *v = 0.0);
