@@ -467,30 +467,46 @@ pub(crate) fn coordinate_sweeps(
     // Scaled energy Σ a·Δ² of the plain updates in the previous sweep, when that sweep ran
     // with the current ω (adaptive ω).
     let mut previous: Option<f64> = None;
+    // The per-coordinate data of the free set, gathered once into contiguous slots (the
+    // free set is a scattered subset of the coordinates, and a sweep that reads g, λ,
+    // H_kk and x + d at each k touches a new cache line of every one of those arrays).
+    let mut slots: Vec<Slot> = free
+        .iter()
+        .map(|&k| Slot {
+            k,
+            a: model.curvature(k) + pen.l2[k],
+            g: g[k],
+            l1: pen.l1[k],
+            l2: pen.l2[k],
+            c: target[k],
+        })
+        .collect();
     let mut count = 0;
+    let mut settled = false;
     for sweep in 0..cd.max_inner_sweeps.max(1) {
         let mut biggest = 0.0f64;
         let mut energy = 0.0f64;
-        for &k in free {
-            let a = model.curvature(k) + pen.l2[k];
+        for slot in slots.iter_mut() {
+            let a = slot.a;
             if !(a > 0.0 && a.is_finite()) {
                 continue;
             }
-            let c = target[k];
-            let b = g[k] + pen.l2[k] * c + model.hd(k);
-            let z = soft_threshold(c - b / a, pen.l1[k] / a);
+            let c = slot.c;
+            let b = slot.g + slot.l2 * c + model.hd(slot.k);
+            let z = soft_threshold(c - b / a, slot.l1 / a);
             if z != c {
                 let change = a * (z - c).abs();
                 biggest = biggest.max(change);
                 energy += change * (z - c).abs();
                 let z = over_relaxed(c, z, omega);
-                model.step(k, z - c);
-                target[k] = z;
+                model.step(slot.k, z - c);
+                slot.c = z;
             }
         }
         count += 1;
         if biggest <= threshold {
-            return (count, true);
+            settled = true;
+            break;
         }
         if adaptive && sweep >= 1 {
             if let Some(e) = previous.filter(|&e| e > 0.0) {
@@ -504,7 +520,21 @@ pub(crate) fn coordinate_sweeps(
             previous = Some(energy);
         }
     }
-    (count, false)
+    for slot in &slots {
+        target[slot.k] = slot.c;
+    }
+    (count, settled)
+}
+
+/// One free coordinate k of the inner loop: H_kk + ℓ2 weight, g_k, its ℓ1 and ℓ2 weights,
+/// and the current value c = x_k + d_k.
+struct Slot {
+    k: usize,
+    a: f64,
+    g: f64,
+    l1: f64,
+    l2: f64,
+    c: f64,
 }
 
 /// The SOR factor ω' for the next sweeps, given the contraction `rate` of the update sizes
