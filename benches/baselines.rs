@@ -14,6 +14,8 @@
 //!   logistic-correlated: n = 1000, p = 2000, AR(1) correlation 0.9 between neighbouring
 //!   columns, λ = 0.02·λ_max; logistic-illcond: correlation 0.99, λ = 0.005·λ_max;
 //! * least-squares(-correlated): the same designs, Gaussian noise, same λ ratios;
+//! * logistic-sparse, least-squares-sparse: the sparse n = 20 000, p = 50 000 (0.1 %)
+//!   problems of benches/glm.rs (benches/common/glm_data.rs), intercept, λ = 0.1·λ_max;
 //! * precision: p = 1000 (500 500 coordinates), the sparse-graph data of benches/precision.rs
 //!   (each variable linked to 2 others, n = p/2 + 200 samples), λ at the 99% quantile of
 //!   the off-diagonal |S_ij|; precision-dense: λ at the 95% quantile; all solvers on the
@@ -32,9 +34,9 @@
 //!   optimality bound; about 740 non-zeros).
 //!
 //! Environment: `ELLONE_BENCH_LOSSES` (comma-separated subset of
-//! "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,
-//! precision,precision-dense,precision-ar1,crf,crf-correlated,crf-wide,crf-large"; default
-//! all),
+//! "logistic,logistic-correlated,logistic-illcond,logistic-sparse,least-squares,
+//! least-squares-correlated,least-squares-sparse,precision,precision-dense,precision-ar1,crf,
+//! crf-correlated,crf-wide,crf-large"; default all),
 //! `ELLONE_BENCH_BUDGET` (seconds per solver, default 60), `ELLONE_BENCH_OUT` (folder for the race CSV and SVG files, default
 //! target/bench-baselines), `ELLONE_BENCH_SOLVERS` (baselines to run besides Newton-CD,
 //! default "fista,admm,owl-qn").
@@ -44,6 +46,9 @@ mod sparse_graph;
 
 #[path = "common/crf_sizes.rs"]
 mod crf_sizes;
+
+#[path = "common/glm_data.rs"]
+mod glm_data;
 
 use ellone::crf::{CrfData, CrfLoss, InputMode};
 use ellone::linalg;
@@ -125,6 +130,21 @@ fn linear_problem(
             Box::new(LeastSquares::from_dense(x.view(), &y, true).expect("valid data")),
             pen,
         )
+    }
+}
+
+/// The sparse 20 000 × 50 000 problem of benches/glm.rs (logistic or least squares with an
+/// intercept), λ = 0.1·λ_max.
+fn sparse_glm_problem(logistic: bool) -> (Box<dyn Loss>, Penalty) {
+    let d = glm_data::sparse();
+    if logistic {
+        let pen = Penalty::l1(0.1 * glm_data::lambda_max(&d.design, &d.labels)).expect("valid λ");
+        let loss = Logistic::new(d.design, d.labels, true).expect("valid data");
+        (Box::new(loss), pen)
+    } else {
+        let pen = Penalty::l1(0.1 * glm_data::lambda_max(&d.design, &d.y)).expect("valid λ");
+        let loss = LeastSquares::new(d.design, d.y, true).expect("valid data");
+        (Box::new(loss), pen)
     }
 }
 
@@ -268,8 +288,9 @@ fn report(name: &str, result: &RaceResult, budget: f64) {
 fn main() {
     // `cargo bench` passes `--bench`; nothing else to parse.
     let losses = std::env::var("ELLONE_BENCH_LOSSES").unwrap_or_else(|_| {
-        "logistic,logistic-correlated,logistic-illcond,least-squares,least-squares-correlated,\
-             precision,precision-dense,precision-ar1,crf,crf-correlated,crf-wide,crf-large"
+        "logistic,logistic-correlated,logistic-illcond,logistic-sparse,least-squares,\
+             least-squares-correlated,least-squares-sparse,precision,precision-dense,\
+             precision-ar1,crf,crf-correlated,crf-wide,crf-large"
             .into()
     });
     let budget: f64 = std::env::var("ELLONE_BENCH_BUDGET")
@@ -292,6 +313,8 @@ fn main() {
             "logistic-correlated" => linear_problem(true, 1000, 2000, 0.9, 0.02),
             "least-squares" => linear_problem(false, 2000, 1000, 0.0, 0.05),
             "least-squares-correlated" => linear_problem(false, 1000, 2000, 0.9, 0.02),
+            "logistic-sparse" => sparse_glm_problem(true),
+            "least-squares-sparse" => sparse_glm_problem(false),
             "precision" => precision_problem(0.99),
             "precision-dense" => precision_problem(0.95),
             "precision-ar1" => precision_ar1_problem(),

@@ -19,15 +19,16 @@
 //! For experiments with the inner loop, `ELLONE_OMEGA=<ω>` fixes the relaxation factor
 //! (`CdOptions::relaxation`; default adaptive) and `ELLONE_FORCING=<η>` the forcing factor.
 //!
-//! The data are synthetic (demo data): Gaussian (dense) or uniform (sparse) entries, a
-//! sparse true coefficient vector, Gaussian noise or Bernoulli labels.
+//! The data are synthetic (demo data, benches/common/glm_data.rs): Gaussian (dense) or
+//! uniform (sparse) entries, a sparse true coefficient vector, Gaussian noise or Bernoulli
+//! labels.
+
+#[path = "common/glm_data.rs"]
+mod glm_data;
 
 use criterion::{criterion_group, Criterion};
 use ellone::solver::{NewtonCd, Solver, SolverOptions};
 use ellone::{Design, LeastSquares, Logistic, Loss, Penalty, Solution};
-use rand::{rngs::StdRng, RngExt, SeedableRng};
-use rand_distr::StandardNormal;
-use sprs::TriMat;
 use std::hint::black_box;
 use std::sync::OnceLock;
 use std::time::Instant;
@@ -41,73 +42,23 @@ struct Data {
     labels: Vec<f64>,
 }
 
-fn finish(name: &'static str, design: Design, beta: &[f64], rng: &mut StdRng) -> Data {
-    let n = design.nrows();
-    let mut eta = vec![0.0; n];
-    design.matvec(beta, &mut eta);
-    let y = eta
-        .iter()
-        .map(|e| e + 0.5 * rng.sample::<f64, _>(StandardNormal))
-        .collect();
-    let labels = eta
-        .iter()
-        .map(|e| f64::from(rng.random::<f64>() < 1.0 / (1.0 + (-e).exp())))
-        .collect();
+fn data(name: &'static str, d: glm_data::GlmData) -> Data {
     Data {
         name,
-        design,
-        y,
-        labels,
+        design: d.design,
+        y: d.y,
+        labels: d.labels,
     }
-}
-
-/// A sparse true coefficient vector: `k` non-zeros of size 0.5–1.5 with alternating signs,
-/// spread over the p coordinates.
-fn sparse_beta(p: usize, k: usize, scale: f64, rng: &mut StdRng) -> Vec<f64> {
-    let mut b = vec![0.0; p];
-    for i in 0..k {
-        let size = scale * (0.5 + rng.random::<f64>());
-        b[(i * 7919) % p] = if i % 2 == 0 { size } else { -size };
-    }
-    b
-}
-
-fn dense_data() -> Data {
-    let (n, p) = (2000, 1000);
-    let mut rng = StdRng::seed_from_u64(1);
-    let x = ndarray::Array2::from_shape_fn((n, p), |_| rng.sample::<f64, _>(StandardNormal));
-    let design = Design::dense(x.view()).unwrap();
-    let beta = sparse_beta(p, 20, 0.5, &mut rng);
-    finish("dense 2000x1000", design, &beta, &mut rng)
-}
-
-fn sparse_data() -> Data {
-    let (n, p, per_col) = (20_000, 50_000, 20); // 0.1 % density
-    let mut rng = StdRng::seed_from_u64(2);
-    let mut tri = TriMat::with_capacity((n, p), p * per_col);
-    for j in 0..p {
-        for _ in 0..per_col {
-            tri.add_triplet(rng.random_range(0..n), j, 2.0 * rng.random::<f64>() - 1.0);
-        }
-    }
-    let design = Design::sparse(tri.to_csc()).unwrap();
-    let beta = sparse_beta(p, 500, 2.0, &mut rng);
-    finish("sparse 20000x50000 (0.1%)", design, &beta, &mut rng)
 }
 
 fn problems() -> &'static [Data; 2] {
     static DATA: OnceLock<[Data; 2]> = OnceLock::new();
-    DATA.get_or_init(|| [dense_data(), sparse_data()])
-}
-
-/// λ_max = max_j |x_jᵀ(y − ȳ)|/n (with an intercept; the same formula for both losses).
-fn lambda_max(design: &Design, y: &[f64]) -> f64 {
-    let n = y.len() as f64;
-    let ybar = y.iter().sum::<f64>() / n;
-    let c: Vec<f64> = y.iter().map(|v| v - ybar).collect();
-    let mut out = vec![0.0; design.ncols()];
-    design.tmatvec(&c, &mut out);
-    out.iter().fold(0.0f64, |a, v| a.max(v.abs())) / n
+    DATA.get_or_init(|| {
+        [
+            data("dense 2000x1000", glm_data::dense()),
+            data("sparse 20000x50000 (0.1%)", glm_data::sparse()),
+        ]
+    })
 }
 
 /// Seconds for one Xᵀv with the library kernel (best of `reps`, to filter out noise from
@@ -257,8 +208,8 @@ fn report() {
     for data in problems() {
         let ls = LeastSquares::new(data.design.clone(), data.y.clone(), true).unwrap();
         let lg = Logistic::new(data.design.clone(), data.labels.clone(), true).unwrap();
-        let lam_ls = 0.1 * lambda_max(&data.design, &data.y);
-        let lam_lg = 0.1 * lambda_max(&data.design, &data.labels);
+        let lam_ls = 0.1 * glm_data::lambda_max(&data.design, &data.y);
+        let lam_lg = 0.1 * glm_data::lambda_max(&data.design, &data.labels);
         // ELLONE_GLM_ONLY=<substring>: report only the problems whose "kind name" matches.
         let only = std::env::var("ELLONE_GLM_ONLY").unwrap_or_default();
         for (loss, kind, target, lambda) in [
@@ -277,8 +228,8 @@ fn bench(c: &mut Criterion) {
     for data in problems() {
         let ls = LeastSquares::new(data.design.clone(), data.y.clone(), true).unwrap();
         let lg = Logistic::new(data.design.clone(), data.labels.clone(), true).unwrap();
-        let pen_ls = Penalty::l1(0.1 * lambda_max(&data.design, &data.y)).unwrap();
-        let pen_lg = Penalty::l1(0.1 * lambda_max(&data.design, &data.labels)).unwrap();
+        let pen_ls = Penalty::l1(0.1 * glm_data::lambda_max(&data.design, &data.y)).unwrap();
+        let pen_lg = Penalty::l1(0.1 * glm_data::lambda_max(&data.design, &data.labels)).unwrap();
         let mut group = c.benchmark_group(format!("glm {}", data.name));
         group.sample_size(10);
         let v = data.y.clone();
@@ -318,8 +269,8 @@ fn profile() {
     for data in problems() {
         let ls = LeastSquares::new(data.design.clone(), data.y.clone(), true).unwrap();
         let lg = Logistic::new(data.design.clone(), data.labels.clone(), true).unwrap();
-        let pen_ls = Penalty::l1(0.1 * lambda_max(&data.design, &data.y)).unwrap();
-        let pen_lg = Penalty::l1(0.1 * lambda_max(&data.design, &data.labels)).unwrap();
+        let pen_ls = Penalty::l1(0.1 * glm_data::lambda_max(&data.design, &data.y)).unwrap();
+        let pen_lg = Penalty::l1(0.1 * glm_data::lambda_max(&data.design, &data.labels)).unwrap();
         for (name, loss, pen) in [
             ("ls", &ls as &dyn Loss, &pen_ls),
             ("logistic", &lg, &pen_lg),
@@ -354,7 +305,7 @@ fn profile() {
     }
     let data = &problems()[1];
     let lg = Logistic::new(data.design.clone(), data.labels.clone(), true).unwrap();
-    let pen = Penalty::l1(0.1 * lambda_max(&data.design, &data.labels)).unwrap();
+    let pen = Penalty::l1(0.1 * glm_data::lambda_max(&data.design, &data.labels)).unwrap();
     let lam = pen.lambda();
     let m = lg.dim();
     let mut prev_inner = 0;
