@@ -64,10 +64,16 @@ impl LinearData {
         let mut eta = vec![0.0; self.n()];
         let p = self.p();
         self.x.matvec(&coef[..p], &mut eta);
+        self.add_intercept(coef, &mut eta);
+        eta
+    }
+
+    /// η ← η + b₀ (nothing without an intercept or when b₀ = 0).
+    pub(crate) fn add_intercept(&self, coef: &[f64], eta: &mut [f64]) {
+        let p = self.p();
         if self.intercept && coef[p] != 0.0 {
             eta.iter_mut().for_each(|e| *e += coef[p]);
         }
-        eta
     }
 
     /// x_kᵀ v (Σ v for the intercept).

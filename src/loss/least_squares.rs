@@ -88,11 +88,15 @@ impl LeastSquares {
     }
 
     fn residual(&self, coef: &[f64]) -> Vec<f64> {
-        let mut r = self.data.eta(coef);
-        for (ri, yi) in r.iter_mut().zip(&self.data.y) {
-            *ri = yi - *ri;
+        self.residual_from_eta(self.data.eta(coef))
+    }
+
+    /// r = y − η, in η's buffer.
+    fn residual_from_eta(&self, mut eta: Vec<f64>) -> Vec<f64> {
+        for (e, y) in eta.iter_mut().zip(&self.data.y) {
+            *e = y - *e;
         }
-        r
+        eta
     }
 }
 
@@ -221,16 +225,10 @@ impl LeastSquares {
     ) -> Result<Box<dyn LocalModel + 'a>> {
         let cols = WeightedColumns::new(&self.data.x, &self.pool);
         // r = y − X b − b₀, with X b from the stored columns.
-        let mut r = vec![0.0; self.data.n()];
-        cols.matvec(x, &mut r);
-        let b0 = if self.data.intercept {
-            x[self.data.p()]
-        } else {
-            0.0
-        };
-        for (ri, yi) in r.iter_mut().zip(&self.data.y) {
-            *ri = yi - (*ri + b0);
-        }
+        let mut eta = vec![0.0; self.data.n()];
+        cols.matvec(x, &mut eta);
+        self.data.add_intercept(x, &mut eta);
+        let r = self.residual_from_eta(eta);
         let n = self.data.n() as f64;
         let mut g = vec![0.0; self.dim()];
         match subset {

@@ -300,10 +300,7 @@ impl Logistic {
         let n = self.data.n();
         let mut eta = vec![0.0; n];
         cols.matvec(x, &mut eta);
-        if self.data.intercept {
-            let b0 = x[self.data.p()];
-            eta.iter_mut().for_each(|e| *e += b0);
-        }
+        self.data.add_intercept(x, &mut eta);
         // π = σ(η) once, for both the residual π − y and the weights π(1 − π), with the
         // loss terms softplus(η_i) − y_i η_i from the same exponential.
         let mut total = 0.0;
