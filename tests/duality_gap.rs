@@ -1,8 +1,8 @@
 //! The duality gaps of least squares and logistic regression.
 //!
-//! Checked against weak duality ("Convex Optimization", Cambridge University Press, 2004,
-//! §5.2.2): for any primal point x and dual-feasible point built from it, the gap is at least
-//! the suboptimality F(x) − F* ≥ 0, with F* from a solve to a KKT tolerance of 1e-12. Also
+//! Checked against weak duality ("Convex Optimization", textbook, 2004, §5.2.2): for any
+//! primal point x and a dual-feasible point built from it, the gap is at least the
+//! suboptimality F(x) − F* ≥ 0, with F* from a solve to a KKT tolerance of 1e-12. Also
 //! checked: the gap computed from a gradient the caller already holds
 //! (`Loss::duality_gap_with_gradient`, which Newton-CD uses to certify its final iterate
 //! without another pass over the data) equals the gap computed from scratch, and the gap

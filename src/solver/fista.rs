@@ -30,7 +30,7 @@
 //! the momentum is zero). [`Solution::inner`] counts gradient evaluations (data passes).
 
 use super::baseline::{curvature_along_gradient, prox, record, start_value_grad, value_grad};
-use super::{Observer, Run, Scale, Solution, Solver, SolverOptions, Status};
+use super::{Observer, Run, Solution, Solver, SolverOptions, Status};
 use crate::error::Result;
 use crate::loss::Loss;
 use crate::penalty::Penalty;
@@ -172,14 +172,7 @@ impl Solver for Fista {
         observer: Option<&mut dyn Observer>,
     ) -> Result<Solution> {
         self.check_tuning()?;
-        let (mut run, pen, mut x) = Run::with_scale(
-            loss,
-            penalty,
-            start,
-            &self.options,
-            observer,
-            Scale::deferred_unless(start),
-        )?;
+        let (mut run, pen, mut x) = Run::deferred(loss, penalty, start, &self.options, observer)?;
         let m = loss.dim();
         let stepper = Stepper {
             loss,

@@ -315,6 +315,20 @@ impl<'o> Run<'o> {
         Self::with_scale(loss, penalty, start, opts, observer, Scale::AtStart)
     }
 
+    /// As [`Run::new`], with the scale taken from the solver's first gradient when the
+    /// solve starts from the default point ([`Scale::deferred_unless`]); the solver then
+    /// calls [`Run::fix_scale`] with that gradient.
+    pub(crate) fn deferred(
+        loss: &dyn Loss,
+        penalty: &Penalty,
+        start: Option<&[f64]>,
+        opts: &SolverOptions,
+        observer: Option<&'o mut dyn Observer>,
+    ) -> Result<(Self, ResolvedPenalty, Vec<f64>)> {
+        let scale = Scale::deferred_unless(start);
+        Self::with_scale(loss, penalty, start, opts, observer, scale)
+    }
+
     /// As [`Run::new`], with the source of the gradient scale ‖∇f(x₀)‖∞ chosen by the
     /// caller.
     pub(crate) fn with_scale(

@@ -27,7 +27,7 @@
 //! trial; [`Solution::inner`] counts gradient evaluations (data passes).
 
 use super::baseline::{dot, l1_value, record, smooth_part, start_value_grad, value_grad};
-use super::{Observer, Run, Scale, Solution, Solver, SolverOptions, Status};
+use super::{Observer, Run, Solution, Solver, SolverOptions, Status};
 use crate::error::{Error, Result};
 use crate::loss::Loss;
 use crate::penalty::{Penalty, ResolvedPenalty};
@@ -151,14 +151,7 @@ impl Solver for Owlqn {
                 self.owlqn.armijo
             )));
         }
-        let (mut run, pen, mut x) = Run::with_scale(
-            loss,
-            penalty,
-            start,
-            &self.options,
-            observer,
-            Scale::deferred_unless(start),
-        )?;
+        let (mut run, pen, mut x) = Run::deferred(loss, penalty, start, &self.options, observer)?;
         let m = loss.dim();
         let mut g = vec![0.0; m];
         let mut f = start_value_grad(loss, &x, &mut g)?;
