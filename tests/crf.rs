@@ -5,7 +5,7 @@ mod common;
 
 use ellone::crf::{CrfData, CrfLoss, InputMode};
 use ellone::loss::{check_derivatives, Loss};
-use ellone::solver::{NewtonCd, Solver, SolverOptions};
+use ellone::solver::{NewtonCd, Solver, SolverOptions, Status};
 use ellone::Penalty;
 use ndarray::Array2;
 use rand::{rngs::StdRng, SeedableRng};
@@ -618,4 +618,31 @@ fn zero_inputs_match_the_precision_estimator() {
         assert!(max_abs_diff(&lam, &reference.precision) < 1e-7);
         assert!((sol.objective - reference.objective).abs() < 1e-10 * sol.objective.abs().max(1.0));
     }
+}
+
+// An unreachable tolerance: the alternating solver must stop once rounding ends its progress
+// (status LineSearchFailed, at the joint solver's optimum to rounding) rather than run to its
+// iteration limit. Outside reference: the joint Newton-CD solution of the same problem.
+#[test]
+fn alternating_stops_when_rounding_ends_progress() {
+    let (x, y) = crf_data(80, 10, 5, 51);
+    let loss = loss_for(&x, &y, InputMode::Gram, 0.05, 0.1);
+    let pen = Penalty::l1(1.0).unwrap();
+    let reference = solve(&loss, 1e-11);
+    let opts = SolverOptions {
+        tol: 1e-17,
+        max_iter: 5000,
+        ..Default::default()
+    };
+    let alt = Alternating::new(opts)
+        .solve(&loss, &pen, None, None)
+        .unwrap();
+    println!(
+        "{:?} after {} iterations, kkt {:e}",
+        alt.status, alt.iterations, alt.kkt_residual
+    );
+    assert_eq!(alt.status, Status::LineSearchFailed);
+    assert!(alt.iterations < 5000);
+    let f = reference.objective;
+    assert!((alt.objective - f).abs() <= 1e-10 * f.abs().max(1.0));
 }

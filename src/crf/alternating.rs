@@ -21,7 +21,7 @@ use super::loss::CrfLoss;
 use crate::error::Result;
 use crate::loss::{LocalModel, Loss};
 use crate::penalty::{Penalty, ResolvedPenalty};
-use crate::solver::newton_cd::{coordinate_sweeps, CdOptions};
+use crate::solver::newton_cd::{coordinate_sweeps, CdOptions, ROUNDING_DECREASE};
 use crate::solver::{Observer, Run, Solution, SolverOptions, Status, TraceRecord};
 
 /// The alternating Θ-step / Λ-step solver (see the module docs).
@@ -36,6 +36,16 @@ pub struct Alternating {
 
 /// Armijo backtracking along target − x over `free`; updates x and returns whether a step
 /// was accepted.
+///
+/// When the predicted decrease is below what an evaluation of F can resolve (the rounding
+/// regime of the Newton-CD driver, `ROUNDING_DECREASE`), the Armijo test would compare
+/// rounding noise: the full step (an accurate block minimiser) is then taken if it stays in
+/// the domain and the KKT residual `kkt` of the outer iteration is below the one at the
+/// last such step of this block (`rounding_kkt`; the scheme converges linearly, so no
+/// faster decrease is asked for), and no step otherwise. So the solver ends with
+/// `LineSearchFailed` once rounding stops its progress, instead of running to its
+/// iteration limit on noise-level steps.
+#[allow(clippy::too_many_arguments)]
 fn line_search(
     model: &mut dyn LocalModel,
     pen: &ResolvedPenalty,
@@ -44,6 +54,8 @@ fn line_search(
     free: &[usize],
     target: &[f64],
     x: &mut [f64],
+    kkt: f64,
+    rounding_kkt: &mut f64,
 ) -> bool {
     let mut delta = 0.0;
     let mut pen_old = 0.0;
@@ -56,6 +68,17 @@ fn line_search(
         return false;
     }
     let f_old = model.value() + pen_old;
+    if -delta <= ROUNDING_DECREASE * f_old.abs().max(1.0) {
+        let inside = model.value_along(1.0).is_some_and(f64::is_finite);
+        if !(inside && kkt < *rounding_kkt) {
+            return false;
+        }
+        *rounding_kkt = kkt;
+        for &k in free {
+            x[k] = target[k];
+        }
+        return true;
+    }
     let mut alpha = 1.0;
     for _ in 0..cd.max_backtracks {
         if let Some(fa) = model.value_along(alpha) {
@@ -130,6 +153,8 @@ impl Alternating {
         let mut g = vec![0.0; m];
         let mut inner = 0usize;
         let mut iteration = 0usize;
+        // KKT residual at the last rounding-regime step of the Θ- and the Λ-block.
+        let mut rounding_kkt = [f64::INFINITY; 2];
         let (status, known) = loop {
             let mut model = CrfLocal::new(loss, &x, true)?;
             g.copy_from_slice(model.gradient());
@@ -168,7 +193,17 @@ impl Alternating {
                 &self.cd,
             )
             .0;
-            let moved_theta = line_search(&mut model, &pen, &self.cd, &g, &free, &target, &mut x);
+            let moved_theta = line_search(
+                &mut model,
+                &pen,
+                &self.cd,
+                &g,
+                &free,
+                &target,
+                &mut x,
+                kkt,
+                &mut rounding_kkt[0],
+            );
             drop(model);
             // Λ-step: one log-det Newton step for fixed Θ.
             let mut model = CrfLocal::new(loss, &x, false)?;
@@ -187,7 +222,17 @@ impl Alternating {
                 &self.cd,
             )
             .0;
-            let moved_lambda = line_search(&mut model, &pen, &self.cd, &g, &free, &target, &mut x);
+            let moved_lambda = line_search(
+                &mut model,
+                &pen,
+                &self.cd,
+                &g,
+                &free,
+                &target,
+                &mut x,
+                kkt,
+                &mut rounding_kkt[1],
+            );
             iteration += 1;
             if !moved_theta && !moved_lambda {
                 break (Status::LineSearchFailed, None);

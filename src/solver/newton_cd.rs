@@ -48,7 +48,7 @@ use crate::penalty::{soft_threshold, Penalty, ResolvedPenalty};
 /// Relative size of a predicted decrease below which a fresh evaluation of F cannot reliably
 /// confirm it: F is a sum of many terms and carries rounding errors from ε·|F| up to about
 /// n·ε·|F| (common practice: do not compare a decrease with evaluation noise).
-const ROUNDING_DECREASE: f64 = 1e-13;
+pub(crate) const ROUNDING_DECREASE: f64 = 1e-13;
 
 /// Tuning of the inner loop of Newton coordinate descent.
 #[derive(Debug, Clone, PartialEq)]
