@@ -648,3 +648,30 @@ fn alternating_stops_when_rounding_ends_progress() {
     let f = reference.objective;
     assert!((alt.objective - f).abs() <= 1e-10 * f.abs().max(1.0));
 }
+// Outside reference: the KKT conditions of DESIGN.md and the joint Newton-CD optimum. The
+// quasi-Newton baseline must reach tight tolerances on the CRF too: its line search used to
+// stop at a KKT residual of 8e-7 (LineSearchFailed) once decreases fell below the rounding
+// noise of F.
+#[test]
+fn quasi_newton_reaches_tight_tolerances() {
+    use ellone::solver::Owlqn;
+    for (seed, (n, p, q)) in [(61u64, (80, 10, 5)), (62, (40, 30, 6))] {
+        let (x, y) = crf_data(n, p, q, seed);
+        let loss = loss_for(&x, &y, InputMode::Auto, 0.05, 0.1);
+        let pen = Penalty::l1(1.0).unwrap();
+        let reference = solve(&loss, 1e-11);
+        let opts = SolverOptions {
+            tol: 1e-10,
+            max_iter: 20_000,
+            ..Default::default()
+        };
+        let sol = Owlqn::new(opts).solve(&loss, &pen).unwrap();
+        assert_eq!(sol.status, Status::Converged, "seed {seed}");
+        assert_converged(&loss, &sol, 1e-10);
+        let f = reference.objective;
+        assert!(
+            (sol.objective - f).abs() <= 1e-12 * f.abs().max(1.0),
+            "seed {seed}"
+        );
+    }
+}
