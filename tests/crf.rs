@@ -675,3 +675,28 @@ fn quasi_newton_reaches_tight_tolerances() {
         );
     }
 }
+
+// Outside reference: agreement of the quasi-Newton fit with the joint Newton fit of the
+// same convex problem (the same model, to tolerance), both certified by the KKT conditions.
+#[test]
+fn quasi_newton_fit_matches_the_joint_fit() {
+    for (seed, (n, p, q)) in [(61u64, (80, 10, 5)), (62, (40, 30, 6))] {
+        let (x, y) = crf_data(n, p, q, seed);
+        let mut options = CrfOptions::new(0.05, 0.1);
+        options.solver.tol = 1e-10;
+        options.solver.max_iter = 20_000;
+        let joint = fit(x.view(), y.view(), &options).unwrap();
+        options.method = CrfMethod::QuasiNewton;
+        let quasi = fit(x.view(), y.view(), &options).unwrap();
+        assert_eq!(quasi.solution.solver, "owl-qn");
+        assert_eq!(quasi.solution.status, Status::Converged, "seed {seed}");
+        let (fj, fq) = (joint.solution.objective, quasi.solution.objective);
+        assert!((fj - fq).abs() <= 1e-12 * fj.abs().max(1.0), "{fj} vs {fq}");
+        let gap = |a: ndarray::ArrayView2<f64>, b: ndarray::ArrayView2<f64>| {
+            max_abs_diff(&a.to_owned(), &b.to_owned())
+        };
+        let dl = gap(joint.model.precision(), quasi.model.precision());
+        let dt = gap(joint.model.interaction(), quasi.model.interaction());
+        assert!(dl < 1e-6 && dt < 1e-6, "Λ differs by {dl}, Θ by {dt}");
+    }
+}
