@@ -27,8 +27,9 @@ use sprs::CsMat;
 /// The least-squares loss on dense or sparse data, with an optional intercept.
 ///
 /// Memory: Newton coordinate descent keeps compact copies of the sparse columns it has
-/// visited between iterations (row indices as `u32` plus values, at most about the size of
-/// the design again); they live as long as the loss (a clone starts without them).
+/// visited between iterations (row indices as `u32` plus values: 12 bytes per entry, at
+/// most the design's entries once); they live as long as the loss (a clone starts without
+/// them).
 #[derive(Debug, Clone)]
 pub struct LeastSquares {
     data: LinearData,
@@ -223,7 +224,7 @@ impl LeastSquares {
         x: &[f64],
         subset: Option<&[usize]>,
     ) -> Result<Box<dyn LocalModel + 'a>> {
-        let cols = WeightedColumns::new(&self.data.x, &self.pool);
+        let cols = WeightedColumns::unweighted(&self.data.x, &self.pool);
         // r = y − X b − b₀, with X b from the stored columns.
         let mut eta = vec![0.0; self.data.n()];
         cols.matvec(x, &mut eta);
