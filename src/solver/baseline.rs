@@ -118,3 +118,26 @@ pub(crate) fn curvature_along_gradient(loss: &dyn Loss, x: &[f64], g: &[f64]) ->
 pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
     a.iter().zip(b).map(|(x, y)| x * y).sum()
 }
+
+/// F(x') − F(x) estimated without cancellation, for steps whose change of F is below the
+/// rounding noise of evaluating F, from the loss gradients g = ∇f(x) and g' = ∇f(x'): f by
+/// the trapezoidal rule ½(g + g')ᵀ(x' − x) (exact for quadratics, third-order accurate
+/// otherwise), the ℓ2 term exactly as ½λ₂(x'² − x²) and the ℓ1 term coordinate by
+/// coordinate. The "approximate Wolfe" idea of "A new conjugate gradient method with
+/// guaranteed descent and an efficient line search", SIAM J. Optimization, 2005.
+pub(crate) fn rounding_change(
+    pen: &ResolvedPenalty,
+    x: &[f64],
+    xn: &[f64],
+    g: &[f64],
+    gn: &[f64],
+) -> f64 {
+    let mut change = 0.0;
+    for k in 0..x.len() {
+        let (a, b) = (x[k], xn[k]);
+        change += 0.5 * (g[k] + gn[k]) * (b - a)
+            + 0.5 * pen.l2[k] * (b * b - a * a)
+            + pen.l1[k] * (b.abs() - a.abs());
+    }
+    change
+}

@@ -33,7 +33,9 @@
 //! converging to the default tolerance instead of ending with `LineSearchFailed` (on a
 //! small CRF it used to stop at a KKT residual of 8·10⁻⁷).
 
-use super::baseline::{dot, l1_value, record, smooth_part, start_value_grad, value_grad};
+use super::baseline::{
+    dot, l1_value, record, rounding_change, smooth_part, start_value_grad, value_grad,
+};
 use super::newton_cd::ROUNDING_DECREASE;
 use super::{Observer, Run, Solution, Solver, SolverOptions, Status};
 use crate::error::{Error, Result};
@@ -242,8 +244,7 @@ impl Solver for Owlqn {
                         continue;
                     };
                     passes += 1;
-                    smooth_part(&pen, &xn, fv, &gn, &mut gsn);
-                    let change = rounding_change(&pen, &x, &xn, &gs, &gsn);
+                    let change = rounding_change(&pen, &x, &xn, &g, &gn);
                     if change <= self.owlqn.armijo * decrease {
                         accepted = Some(fv);
                         have_gradient = true;
@@ -300,21 +301,6 @@ impl Solver for Owlqn {
             passes,
         )
     }
-}
-
-/// F(x') − F(x) estimated without cancellation, for steps whose change of F is below the
-/// rounding noise of evaluating F: the smooth part by the trapezoidal rule
-/// ½(∇s(x) + ∇s(x'))ᵀ(x' − x) (exact for quadratics, third-order accurate otherwise), the
-/// ℓ1 part coordinate by coordinate. The "approximate Wolfe" idea of "A new conjugate
-/// gradient method with guaranteed descent and an efficient line search", SIAM J.
-/// Optimization, 2005.
-fn rounding_change(pen: &ResolvedPenalty, x: &[f64], xn: &[f64], gs: &[f64], gsn: &[f64]) -> f64 {
-    let mut change = 0.0;
-    for k in 0..x.len() {
-        let step = xn[k] - x[k];
-        change += 0.5 * (gs[k] + gsn[k]) * step + pen.l1[k] * (xn[k].abs() - x[k].abs());
-    }
-    change
 }
 
 #[cfg(test)]
