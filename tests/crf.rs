@@ -648,6 +648,10 @@ fn alternating_stops_when_rounding_ends_progress() {
     let f = reference.objective;
     assert!((alt.objective - f).abs() <= 1e-10 * f.abs().max(1.0));
 }
+/// Two small CRFs (seed, (n, p, q)), the second with more inputs than samples, on which
+/// the quasi-Newton baseline used to stop early.
+const SMALL_CRFS: [(u64, (usize, usize, usize)); 2] = [(61, (80, 10, 5)), (62, (40, 30, 6))];
+
 // Outside reference: the KKT conditions of DESIGN.md and the joint Newton-CD optimum. The
 // quasi-Newton baseline must reach tight tolerances on the CRF too: its line search used to
 // stop at a KKT residual of 8e-7 (LineSearchFailed) once decreases fell below the rounding
@@ -655,7 +659,7 @@ fn alternating_stops_when_rounding_ends_progress() {
 #[test]
 fn quasi_newton_reaches_tight_tolerances() {
     use ellone::solver::Owlqn;
-    for (seed, (n, p, q)) in [(61u64, (80, 10, 5)), (62, (40, 30, 6))] {
+    for (seed, (n, p, q)) in SMALL_CRFS {
         let (x, y) = crf_data(n, p, q, seed);
         let loss = loss_for(&x, &y, InputMode::Auto, 0.05, 0.1);
         let pen = Penalty::l1(1.0).unwrap();
@@ -680,7 +684,7 @@ fn quasi_newton_reaches_tight_tolerances() {
 // same convex problem (the same model, to tolerance), both certified by the KKT conditions.
 #[test]
 fn quasi_newton_fit_matches_the_joint_fit() {
-    for (seed, (n, p, q)) in [(61u64, (80, 10, 5)), (62, (40, 30, 6))] {
+    for (seed, (n, p, q)) in SMALL_CRFS {
         let (x, y) = crf_data(n, p, q, seed);
         let mut options = CrfOptions::new(0.05, 0.1);
         options.solver.tol = 1e-10;

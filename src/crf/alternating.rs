@@ -177,67 +177,67 @@ impl Alternating {
             if let Some(s) = run.check(rec) {
                 break (s, Some((objective, kkt)));
             }
-            let threshold = self.cd.forcing * kkt;
             // Θ-step: exact quadratic in Θ for fixed Λ.
-            free_set(nl..m, &x, &g, &pen, &mut free);
-            for &k in &free {
-                target[k] = x[k];
-            }
-            inner += coordinate_sweeps(
+            let (sweeps, moved_theta) = self.block_step(
                 &mut model,
                 &pen,
                 &g,
-                &free,
-                &mut target,
-                threshold,
-                &self.cd,
-            )
-            .0;
-            let moved_theta = line_search(
-                &mut model,
-                &pen,
-                &self.cd,
-                &g,
-                &free,
-                &target,
+                nl..m,
                 &mut x,
+                &mut target,
+                &mut free,
                 kkt,
                 &mut rounding_kkt[0],
             );
+            inner += sweeps;
             drop(model);
             // Λ-step: one log-det Newton step for fixed Θ.
             let mut model = CrfLocal::new(loss, &x, false)?;
             g[..nl].copy_from_slice(&model.gradient()[..nl]);
-            free_set(0..nl, &x, &g, &pen, &mut free);
-            for &k in &free {
-                target[k] = x[k];
-            }
-            inner += coordinate_sweeps(
+            let (sweeps, moved_lambda) = self.block_step(
                 &mut model,
                 &pen,
                 &g,
-                &free,
-                &mut target,
-                threshold,
-                &self.cd,
-            )
-            .0;
-            let moved_lambda = line_search(
-                &mut model,
-                &pen,
-                &self.cd,
-                &g,
-                &free,
-                &target,
+                0..nl,
                 &mut x,
+                &mut target,
+                &mut free,
                 kkt,
                 &mut rounding_kkt[1],
             );
+            inner += sweeps;
             iteration += 1;
             if !moved_theta && !moved_lambda {
                 break (Status::LineSearchFailed, None);
             }
         };
         run.finish(self.name(), loss, &pen, x, known, status, iteration, inner)
+    }
+
+    /// One block step over the coordinates `range` from the block's local model: its free
+    /// set, inner sweeps to the forcing threshold of the outer KKT residual `kkt`, then
+    /// the line search (`rounding_kkt` is this block's rounding-regime state). `target`
+    /// and `free` are scratch. Returns (sweeps, whether x moved).
+    #[allow(clippy::too_many_arguments)]
+    fn block_step(
+        &self,
+        model: &mut dyn LocalModel,
+        pen: &ResolvedPenalty,
+        g: &[f64],
+        range: std::ops::Range<usize>,
+        x: &mut [f64],
+        target: &mut [f64],
+        free: &mut Vec<usize>,
+        kkt: f64,
+        rounding_kkt: &mut f64,
+    ) -> (usize, bool) {
+        free_set(range, x, g, pen, free);
+        for &k in free.iter() {
+            target[k] = x[k];
+        }
+        let threshold = self.cd.forcing * kkt;
+        let (sweeps, _) = coordinate_sweeps(model, pen, g, free, target, threshold, &self.cd);
+        let moved = line_search(model, pen, &self.cd, g, free, target, x, kkt, rounding_kkt);
+        (sweeps, moved)
     }
 }
