@@ -308,26 +308,7 @@ impl Design {
     }
 }
 
-/// Plain dot product with four accumulators (lets the compiler vectorise).
-#[inline]
-pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
-    let n = a.len().min(b.len());
-    let (a, b) = (&a[..n], &b[..n]);
-    let mut s = [0.0f64; 4];
-    let chunks = n / 4;
-    for c in 0..chunks {
-        let i = 4 * c;
-        s[0] += a[i] * b[i];
-        s[1] += a[i + 1] * b[i + 1];
-        s[2] += a[i + 2] * b[i + 2];
-        s[3] += a[i + 3] * b[i + 3];
-    }
-    let mut t = (s[0] + s[1]) + (s[2] + s[3]);
-    for i in 4 * chunks..n {
-        t += a[i] * b[i];
-    }
-    t
-}
+pub(crate) use crate::dot::dot;
 
 #[cfg(test)]
 mod tests {

@@ -108,6 +108,7 @@ pub mod cv;
 pub mod cv_crf;
 pub mod cv_precision;
 pub mod design;
+mod dot;
 pub mod error;
 pub mod io;
 pub mod linalg;

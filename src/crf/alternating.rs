@@ -236,7 +236,7 @@ impl Alternating {
             target[k] = x[k];
         }
         let threshold = self.cd.forcing * kkt;
-        let (sweeps, _) = coordinate_sweeps(model, pen, g, free, target, threshold, &self.cd);
+        let sweeps = coordinate_sweeps(model, pen, g, free, target, threshold, &self.cd).count;
         let moved = line_search(model, pen, &self.cd, g, free, target, x, kkt, rounding_kkt);
         (sweeps, moved)
     }

@@ -14,6 +14,7 @@
 //! transformation is recorded so the fitted model can be mapped back to the original units
 //! (see [`crate::crf::CrfModel`]).
 
+use crate::dot::dot;
 use crate::error::{Error, Result};
 use crate::linalg::matmul;
 use ndarray::{Array2, ArrayView2, Axis};
@@ -246,41 +247,27 @@ impl CrfData {
         &self.y_map
     }
 
-    /// S_xx[rows, rows] (r×r).
-    pub(crate) fn gram_block(&self, rows: &[usize]) -> Array2<f64> {
+    /// S_xx[i, j]: read off S_xx, or x_iᵀx_j/n by the crate's fixed-order dot product, so
+    /// an entry has the same bits however a block of them is assembled (the diagonal is the
+    /// exact diag(S_xx)).
+    #[inline]
+    pub(crate) fn gram_entry(&self, i: usize, j: usize) -> f64 {
         match &self.inputs {
-            Inputs::Gram(s) => s.select(Axis(0), rows).select(Axis(1), rows),
+            Inputs::Gram(s) => s[[i, j]],
+            Inputs::Data(_) if i == j => self.sxx_diag[i],
             Inputs::Data(xt) => {
-                let xa = xt.select(Axis(0), rows);
-                let mut g = matmul(xa.view(), xa.t());
-                let nf = self.n as f64;
-                g.mapv_inplace(|v| v / nf);
-                for (a, &i) in rows.iter().enumerate() {
-                    g[[a, a]] = self.sxx_diag[i];
+                let (a, b) = (xt.row(i), xt.row(j));
+                match (a.as_slice(), b.as_slice()) {
+                    (Some(a), Some(b)) => dot(a, b) / self.n as f64,
+                    _ => a.dot(&b) / self.n as f64,
                 }
-                g
             }
         }
     }
 
     /// S_xx[i, rows] (one row of the Gram matrix against a row set).
     pub(crate) fn gram_row(&self, i: usize, rows: &[usize]) -> Vec<f64> {
-        match &self.inputs {
-            Inputs::Gram(s) => rows.iter().map(|&r| s[[i, r]]).collect(),
-            Inputs::Data(xt) => {
-                let xi = xt.row(i);
-                let nf = self.n as f64;
-                rows.iter()
-                    .map(|&r| {
-                        if r == i {
-                            self.sxx_diag[i]
-                        } else {
-                            xi.dot(&xt.row(r)) / nf
-                        }
-                    })
-                    .collect()
-            }
-        }
+        rows.iter().map(|&r| self.gram_entry(i, r)).collect()
     }
 
     /// Ψ = ΘᵀS_xxΘ for Θ given by its non-zero rows `rows` and their values `block`

@@ -7,8 +7,9 @@
 //! * C = MᵀD (q×q): a step on Θ_ij changes column j by δ·M[i,:], O(q);
 //! * Q = DΣ restricted to the *registered* rows of Θ (the rows the inner loop touches),
 //!   stored by columns: a step on Θ_ij changes row i by δ·Σ[j,:], O(q);
-//! * G = S_xx[R, R] for the registered rows R, formed once per outer iteration by one
-//!   product X_Rᵀ X_R / n (or read off S_xx), so no O(n·p) work happens in the inner loop.
+//! * G = S_xx[R, R] for the registered rows R, formed before the inner loop (read off
+//!   S_xx, or from the previous model's block plus one product X_Nᵀ X_R / n for the rows N
+//!   new since then, see `gram_cache`), so no O(n·p) work happens in the inner loop.
 //!
 //! Then with H_Λ and H_Θ from the loss docs:
 //!
@@ -37,7 +38,9 @@
 //! D is non-zero), so each trial costs one q×q Cholesky (which is also the
 //! positive-definiteness test) and one q×q solve. If E = 0 the Cholesky is skipped.
 
+use super::gram_cache::GramBlock;
 use super::loss::{sandwich, CrfLoss};
+use crate::dot::dot;
 use crate::error::{Error, Result};
 use crate::linalg::{cholesky, matmul};
 use crate::loss::{InnerLoopHints, LocalModel};
@@ -90,27 +93,6 @@ pub(crate) struct CrfLocal<'a> {
     cache: Option<LineCache>,
 }
 
-#[inline]
-fn dot(a: &[f64], b: &[f64]) -> f64 {
-    // Four accumulators so the compiler can vectorise.
-    let n = a.len().min(b.len());
-    let (a, b) = (&a[..n], &b[..n]);
-    let mut s = [0.0f64; 4];
-    let chunks = n / 4;
-    for t in 0..chunks {
-        let i = 4 * t;
-        s[0] += a[i] * b[i];
-        s[1] += a[i + 1] * b[i + 1];
-        s[2] += a[i + 2] * b[i + 2];
-        s[3] += a[i + 3] * b[i + 3];
-    }
-    let mut r = (s[0] + s[1]) + (s[2] + s[3]);
-    for i in 4 * chunks..n {
-        r += a[i] * b[i];
-    }
-    r
-}
-
 impl<'a> CrfLocal<'a> {
     /// The model at x. With `theta_block = false` only the Λ block is usable: M = S_xxΘΣ
     /// (the one O(n·p·q) product) is not formed, the Θ part of the gradient is left at 0 and
@@ -148,19 +130,15 @@ impl<'a> CrfLocal<'a> {
                 theta_block && (0..q).any(|j| theta[i * q + j] != 0.0 || gt[i * q + j].abs() >= lt)
             })
             .collect();
-        let r = predicted.len();
-        let cap = r.max(16);
-        let gblock = data.gram_block(&predicted);
-        let mut gram = vec![0.0; cap * cap];
-        for a in 0..r {
-            for (dst, v) in gram[a * cap..a * cap + r].iter_mut().zip(gblock.row(a)) {
-                *dst = *v;
-            }
-        }
+        let GramBlock {
+            rows: reg,
+            values: gram,
+            cap,
+        } = loss.gram_pool.assemble(data, &predicted);
         let mut pos = vec![NONE; p];
         let mut theta_a = vec![0.0; cap * q];
         let mut theta_row_on = vec![false; cap];
-        for (a, &i) in predicted.iter().enumerate() {
+        for (a, &i) in reg.iter().enumerate() {
             pos[i] = a as u32;
             let row = &theta[i * q..(i + 1) * q];
             theta_a[a * q..(a + 1) * q].copy_from_slice(row);
@@ -179,7 +157,7 @@ impl<'a> CrfLocal<'a> {
             phi,
             psi,
             m,
-            reg: predicted,
+            reg,
             pos,
             cap,
             gram,
@@ -290,6 +268,20 @@ impl<'a> CrfLocal<'a> {
                 }
             }
             self.cache = Some(LineCache { lin, psi1, psi2 });
+        }
+    }
+}
+
+impl Drop for CrfLocal<'_> {
+    /// Hands the Gram block (with any rows registered during the inner loop) to the loss
+    /// for the next model.
+    fn drop(&mut self) {
+        if !self.reg.is_empty() {
+            self.loss.gram_pool.give(GramBlock {
+                rows: std::mem::take(&mut self.reg),
+                values: std::mem::take(&mut self.gram),
+                cap: self.cap,
+            });
         }
     }
 }

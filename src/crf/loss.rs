@@ -28,6 +28,7 @@
 //! still pass another λ (it scales both) or weights.
 
 use super::data::{symmetrise, CrfData};
+use super::gram_cache::GramPool;
 use super::local::CrfLocal;
 use crate::error::{check_lambda, Error, Result};
 use crate::linalg::{cholesky, matmul};
@@ -44,6 +45,8 @@ pub struct CrfLoss {
     pub(crate) nl: usize,
     /// (k, l), k ≤ l, of every Λ coordinate.
     pub(crate) pairs: Vec<(u32, u32)>,
+    /// The Gram block of the last local model, reused by the next one.
+    pub(crate) gram_pool: GramPool,
 }
 
 /// The quantities at a point that value, gradient and the local model share.
@@ -85,6 +88,7 @@ impl CrfLoss {
             lambda_interaction,
             nl,
             pairs,
+            gram_pool: GramPool::default(),
         })
     }
 

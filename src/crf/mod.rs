@@ -17,6 +17,7 @@
 //!   small, otherwise products go through X.
 //! * [`loss`]: the loss over `[upper triangle of Λ, Θ]` for the generic solvers.
 //! * `local`: the fast local model (O(q) / O(|R| + q) per coordinate).
+//! * `gram_cache`: the Gram block S_xx[R, R] kept from one local model to the next.
 //! * [`alternating`]: the alternating Θ-step / Λ-step solver.
 //! * [`fit`](mod@fit): the entry point [`fit()`](fit::fit) and its options.
 //! * [`model`]: the fitted model (predict, covariance, scenarios, scores, JSON).
@@ -25,6 +26,7 @@
 pub mod alternating;
 pub mod data;
 pub mod fit;
+mod gram_cache;
 mod local;
 pub mod loss;
 pub mod model;

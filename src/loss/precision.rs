@@ -51,6 +51,7 @@
 //! positive definite (far from the solution) or an ℓ2 term is present.
 
 use super::{LocalModel, Loss};
+use crate::dot::dot;
 use crate::error::{Error, Result};
 use crate::linalg::{self, Cholesky};
 use crate::penalty::ResolvedPenalty;
@@ -485,10 +486,6 @@ fn mirror_lower(t: &mut [f64], p: usize) {
     }
 }
 
-fn dot(a: &[f64], b: &[f64]) -> f64 {
-    a.iter().zip(b).map(|(u, v)| u * v).sum()
-}
-
 impl Loss for LogDet {
     fn dim(&self) -> usize {
         self.pairs.len()
@@ -692,25 +689,6 @@ impl LogDetModel<'_> {
     }
 }
 
-/// aᵀb with eight independent accumulators (vectorisable).
-#[inline]
-fn fast_dot(a: &[f64], b: &[f64]) -> f64 {
-    let mut acc = [0.0f64; 8];
-    let ca = a.chunks_exact(8);
-    let cb = b.chunks_exact(8);
-    let (ra, rb) = (ca.remainder(), cb.remainder());
-    for (x, y) in ca.zip(cb) {
-        for t in 0..8 {
-            acc[t] += x[t] * y[t];
-        }
-    }
-    let mut s = ((acc[0] + acc[1]) + (acc[2] + acc[3])) + ((acc[4] + acc[5]) + (acc[6] + acc[7]));
-    for (x, y) in ra.iter().zip(rb) {
-        s += x * y;
-    }
-    s
-}
-
 impl LocalModel for LogDetModel<'_> {
     fn value(&self) -> f64 {
         self.f
@@ -746,7 +724,7 @@ impl LocalModel for LogDetModel<'_> {
         }
         let p = self.p;
         // (WDW)_ij = w_iᵀ (D w_j).
-        let s = fast_dot(&self.w[i * p..(i + 1) * p], &self.y);
+        let s = dot(&self.w[i * p..(i + 1) * p], &self.y);
         if i == j {
             s
         } else {

@@ -113,11 +113,7 @@ pub(crate) fn curvature_along_gradient(loss: &dyn Loss, x: &[f64], g: &[f64]) ->
     }
 }
 
-/// Dot product.
-#[inline]
-pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
-    a.iter().zip(b).map(|(x, y)| x * y).sum()
-}
+pub(crate) use crate::dot::dot;
 
 /// F(x') − F(x) estimated without cancellation, for steps whose change of F is below the
 /// rounding noise of evaluating F, from the loss gradients g = ∇f(x) and g' = ∇f(x'): f by
