@@ -32,7 +32,7 @@ pub enum CrfMethod {
     /// The orthant-wise quasi-Newton method ([`Owlqn`], default history). It can be the
     /// faster choice on wide problems with a dense solution: with p = 3000 inputs, n = 1000
     /// samples, q = 100 outputs and about 43 000 non-zeros it reached 10⁻⁶ suboptimality in
-    /// 2.5–7.7 s against 16.5–21 s for the joint method (benches/baselines.rs, `crf-wide`),
+    /// 3.3 s against 6.7 s for the joint method (benches/baselines.rs, `crf-wide`),
     /// while on the same sizes with a sparse solution (about 740 non-zeros) it was 16×
     /// slower. Race the methods on your own data (`ellone race`) to choose.
     QuasiNewton,
