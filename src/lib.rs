@@ -121,6 +121,7 @@ pub mod precision;
 pub mod race;
 #[cfg(feature = "cli")]
 pub mod race_plot;
+mod reuse;
 pub mod scenario;
 pub mod solver;
 

@@ -26,7 +26,7 @@
 //! design's own arrays and 1.4–1.8 ms when re-gathering w.
 
 use crate::design::Design;
-use std::sync::Mutex;
+use crate::reuse::Reuse;
 
 /// Not stored yet.
 const UNSET: usize = usize::MAX;
@@ -54,30 +54,8 @@ struct Pooled {
 }
 
 /// Buffers kept between the models of one loss. Cloning a loss starts an empty pool.
-#[derive(Debug, Default)]
-pub(crate) struct ColumnPool(Mutex<Option<Pooled>>);
-
-impl Clone for ColumnPool {
-    fn clone(&self) -> Self {
-        Self::default()
-    }
-}
-
-impl ColumnPool {
-    fn take(&self) -> Pooled {
-        self.0
-            .lock()
-            .ok()
-            .and_then(|mut b| b.take())
-            .unwrap_or_default()
-    }
-
-    fn give(&self, pooled: Pooled) {
-        if let Ok(mut slot) = self.0.lock() {
-            *slot = Some(pooled);
-        }
-    }
-}
+#[derive(Debug, Default, Clone)]
+pub(crate) struct ColumnPool(Reuse<Pooled>);
 
 /// The columns of one model: the shared store plus this model's weighted values.
 #[derive(Debug)]
@@ -112,7 +90,7 @@ impl<'x> WeightedColumns<'x> {
     }
 
     fn open(x: &'x Design, pool: &'x ColumnPool, with_weights: bool) -> Self {
-        let mut b = pool.take();
+        let mut b = pool.0.take();
         let p = x.ncols();
         if b.store.at.len() != p {
             b = Pooled::default();
@@ -284,7 +262,7 @@ impl<'x> WeightedColumns<'x> {
 
 impl Drop for WeightedColumns<'_> {
     fn drop(&mut self) {
-        self.pool.give(Pooled {
+        self.pool.0.give(Pooled {
             store: std::mem::take(&mut self.store),
             weighted: std::mem::take(&mut self.weighted),
             stamp: std::mem::take(&mut self.stamp),
