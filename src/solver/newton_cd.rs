@@ -15,8 +15,8 @@
 //!    Sweeps stop when the largest scaled change a·|z − c| of a sweep falls below
 //!    `η · KKT(x)` (a forcing rule: loose far from the solution, tight near it; the factor
 //!    η itself grows from 0.05 towards ½ while the quadratic model mispredicts F, see
-//!    `CdOptions::adaptive_forcing`), or after `max_inner_sweeps`. When sweeps converge slowly, the updates are
-//!    over-relaxed, d_k += ω(z − c) with ω ∈ [1, 1.8] estimated from the observed
+//!    `CdOptions::adaptive_forcing`), or after `max_inner_sweeps`. When sweeps converge
+//!    slowly, the updates are over-relaxed, d_k += ω(z − c) with ω ∈ [1, 1.8] estimated from the observed
 //!    contraction (successive over-relaxation, applied only where it cannot cross a kink of
 //!    |·|), for the models that allow it: on the sparse 20000 × 50000 logistic benchmark
 //!    this cut the sweeps from 61 to 37.
@@ -518,8 +518,8 @@ fn cold_start_entry(candidates: &[usize], x: &[f64], g: &[f64], pen: &ResolvedPe
 /// `S(c − b/a, λ_k/a)`. Stops after a sweep whose largest scaled change a·|Δ| is at most
 /// `threshold`, or after `cd.max_inner_sweeps`. Steps are over-relaxed as
 /// `cd.relaxation` says (see [`over_relaxed`] and [`adaptive_relaxation`]); the stopping
-/// test always measures the plain step. Returns (sweeps done, whether the threshold was
-/// met, and the change of the penalised model q(d) − q(d₀) over the sweeps).
+/// test always measures the plain step. Returns the sweeps done, whether the threshold was
+/// met, and the change of the penalised model over the sweeps ([`Sweeps`]).
 pub(crate) fn coordinate_sweeps(
     model: &mut dyn LocalModel,
     pen: &ResolvedPenalty,
