@@ -102,6 +102,15 @@ impl LinearData {
         }
     }
 
+    /// The correlations x_jᵀv/n of every feature with a vector v (one pass over the data).
+    pub(crate) fn correlations(&self, v: &[f64]) -> Vec<f64> {
+        let mut corr = vec![0.0; self.p()];
+        self.x.tmatvec(v, &mut corr);
+        let n = self.n() as f64;
+        corr.iter_mut().for_each(|c| *c /= n);
+        corr
+    }
+
     /// The correlations x_jᵀ(ρ − ρ̄)/n of every feature with a residual ρ (centred when
     /// there is an intercept, ρ̄ = Σρ/n; not centred otherwise), from the gradient
     /// g = −[X 1]ᵀρ/n of a loss whose gradient has that form (least squares: ρ = y − η;

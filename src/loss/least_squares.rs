@@ -186,9 +186,7 @@ impl Loss for LeastSquares {
             0.0
         };
         let centred: Vec<f64> = r.iter().map(|v| v - shift).collect();
-        let mut corr = vec![0.0; self.data.p()];
-        self.data.x.tmatvec(&centred, &mut corr);
-        corr.iter_mut().for_each(|c| *c /= n);
+        let corr = self.data.correlations(&centred);
         self.gap_from(x, r, corr, pen)
     }
 

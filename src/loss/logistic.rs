@@ -253,12 +253,9 @@ impl Loss for Logistic {
         if pen.l2.iter().any(|&v| v > 0.0) {
             return None; // no clean dual with the ℓ2 term
         }
-        let n = self.data.n() as f64;
         let eta = self.data.eta(x);
         let rho = self.centred_residual(&eta);
-        let mut corr = vec![0.0; self.data.p()];
-        self.data.x.tmatvec(&rho, &mut corr);
-        corr.iter_mut().for_each(|c| *c /= n);
+        let corr = self.data.correlations(&rho);
         self.gap_from(x, &eta, &rho, &corr, pen)
     }
 
