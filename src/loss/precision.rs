@@ -604,8 +604,11 @@ impl Loss for LogDet {
             w_diagonal: self.is_diagonal(x),
             active: Vec::new(),
             pos: vec![NONE; self.dim()],
-            y: vec![0.0; p],
-            ycol: NONE as usize,
+            y: vec![0.0; BLOCK * p],
+            ycol: 0,
+            ycount: 0,
+            lanes: vec![[0.0; BLOCK]; p],
+            wt: vec![[0.0; BLOCK]; p],
             f: -ld + tr_s_theta,
             tr_s_theta,
             g,
@@ -616,16 +619,24 @@ impl Loss for LogDet {
 /// "No entry" marker of [`LogDetModel::pos`].
 const NONE: u32 = u32::MAX;
 
+/// Columns c of the products y_c = D w_c that the model forms in one pass over D.
+const BLOCK: usize = 8;
+
 /// The local model of the log-det loss at Θ.
 ///
 /// Holds W = Θ⁻¹ and the direction D as a compact list of its non-zero coordinates. For
-/// the inner products (WDW)_ij = w_iᵀ(D w_j) it keeps y = D w_c for one column c at a time:
-/// rebuilt from the list, O(nnz D) reads of the single row w_c, when a coordinate of another
-/// column is asked for (the driver sweeps coordinates in index order, i.e. column by
-/// column, so this happens once per column and sweep), and kept exact in O(1) by every
-/// step (D_ab += δ changes y_a by δW_bc and y_b by δW_ac). A coordinate then costs one
+/// the inner products (WDW)_ij = w_iᵀ(D w_j) it keeps y_c = D w_c for a block of
+/// [`BLOCK`] consecutive columns c₀ ≤ c < c₀ + 8: formed from the list in one pass, when a
+/// coordinate of a column outside the block is asked for (the driver sweeps coordinates in
+/// index order, i.e. column by column, so this happens once per 8 columns and sweep), and
+/// kept exact in O(1) per column by every step (D_ab += δ changes y_c,a by δW_bc and y_c,b
+/// by δW_ac). One pass serves 8 columns because W is symmetric: the 8 factors W_{b,c₀..c₀+8}
+/// an entry needs are contiguous in row b, so the pass does 8-wide vector work for the price
+/// of its scattered loads and stores, which bound it. A coordinate then costs one
 /// contiguous inner product with w_i, and a step O(1): nothing of order p² is touched per
-/// coordinate, and the only O(p) memory traffic is the row w_i.
+/// coordinate, and the only O(p) memory traffic is the row w_i. Measured on the AR(1)
+/// precision race of benches/baselines.rs (p = 1000, about 5 000 entries in D): see the
+/// CHANGELOG.
 struct LogDetModel<'a> {
     loss: &'a LogDet,
     p: usize,
@@ -641,9 +652,14 @@ struct LogDetModel<'a> {
     active: Vec<(u32, u32, f64)>,
     /// Position of coordinate k in `active`, or [`NONE`].
     pos: Vec<u32>,
-    /// y = D w_ycol (valid when ycol < p).
+    /// y_c = D w_c for the cached columns c = ycol + t, t < ycount, at [t·p, (t + 1)·p).
     y: Vec<f64>,
     ycol: usize,
+    ycount: usize,
+    /// Scratch of the block pass: entry r holds (y_c)_r for the block's columns.
+    lanes: Vec<[f64; BLOCK]>,
+    /// Scratch of the block pass: the block's rows of W, interleaved.
+    wt: Vec<[f64; BLOCK]>,
     f: f64,
     /// tr(SΘ).
     tr_s_theta: f64,
@@ -657,35 +673,63 @@ impl LogDetModel<'_> {
         (i as usize, j as usize)
     }
 
-    /// y = D w_c from the list of non-zero coordinates of D.
-    fn rebuild(&mut self, c: usize) {
+    /// y_c = D w_c for the block of columns c₀ ≤ c < c₀ + 8 from the list of non-zero
+    /// coordinates of D, in one pass.
+    fn rebuild(&mut self, c0: usize) {
         let p = self.p;
-        let wc = &self.w[c * p..(c + 1) * p];
-        let y = &mut self.y;
-        y.iter_mut().for_each(|v| *v = 0.0);
+        let count = BLOCK.min(p - c0);
+        let mut lanes = std::mem::take(&mut self.lanes);
+        lanes.iter_mut().for_each(|l| *l = [0.0; BLOCK]);
+        // The block's rows of W, interleaved: wt[r][t] = W_{c₀+t, r}.
+        let mut wt = std::mem::take(&mut self.wt);
+        wt.iter_mut().for_each(|l| *l = [0.0; BLOCK]);
+        for t in 0..count {
+            let row = &self.w[(c0 + t) * p..(c0 + t + 1) * p];
+            for (l, &v) in wt.iter_mut().zip(row) {
+                l[t] = v;
+            }
+        }
         // The list is mostly grouped by column b (coordinates are first touched in index
-        // order), so the y_b terms are summed in a register and stored once per run of
+        // order), so the y_b terms are summed in registers and stored once per run of
         // equal b, avoiding a store-to-load dependency chain through y_b.
         let mut run_b = usize::MAX;
-        let mut acc = 0.0;
+        let mut acc = [0.0; BLOCK];
         for &(a, b, v) in &self.active {
             let (a, b) = (a as usize, b as usize);
-            y[a] += v * wc[b];
+            let wb = wt[b];
+            for (y, w) in lanes[a].iter_mut().zip(&wb) {
+                *y += v * w;
+            }
             if a != b {
                 if b != run_b {
                     if run_b != usize::MAX {
-                        y[run_b] += acc;
+                        for (y, s) in lanes[run_b].iter_mut().zip(&acc) {
+                            *y += s;
+                        }
                     }
                     run_b = b;
-                    acc = 0.0;
+                    acc = [0.0; BLOCK];
                 }
-                acc += v * wc[a];
+                let wa = wt[a];
+                for (s, w) in acc.iter_mut().zip(&wa) {
+                    *s += v * w;
+                }
             }
         }
         if run_b != usize::MAX {
-            y[run_b] += acc;
+            for (y, s) in lanes[run_b].iter_mut().zip(&acc) {
+                *y += s;
+            }
         }
-        self.ycol = c;
+        for t in 0..count {
+            for (y, l) in self.y[t * p..(t + 1) * p].iter_mut().zip(&lanes) {
+                *y = l[t];
+            }
+        }
+        self.lanes = lanes;
+        self.wt = wt;
+        self.ycol = c0;
+        self.ycount = count;
     }
 }
 
@@ -719,12 +763,13 @@ impl LocalModel for LogDetModel<'_> {
             let s = self.wdiag[i] * d * self.wdiag[j];
             return if i == j { s } else { 2.0 * s };
         }
-        if self.ycol != j {
+        if !(self.ycol..self.ycol + self.ycount).contains(&j) {
             self.rebuild(j);
         }
         let p = self.p;
+        let t = j - self.ycol;
         // (WDW)_ij = w_iᵀ (D w_j).
-        let s = dot(&self.w[i * p..(i + 1) * p], &self.y);
+        let s = dot(&self.w[i * p..(i + 1) * p], &self.y[t * p..(t + 1) * p]);
         if i == j {
             s
         } else {
@@ -741,12 +786,13 @@ impl LocalModel for LogDetModel<'_> {
             }
             q => self.active[q as usize].2 += delta,
         }
-        let c = self.ycol;
-        if c < self.p {
-            let wc = &self.w[c * self.p..(c + 1) * self.p];
-            self.y[a] += delta * wc[b];
+        let p = self.p;
+        for t in 0..self.ycount {
+            let c = self.ycol + t;
+            // W_bc and W_ac, read from rows b and a (W is symmetric).
+            self.y[t * p + a] += delta * self.w[b * p + c];
             if a != b {
-                self.y[b] += delta * wc[a];
+                self.y[t * p + b] += delta * self.w[a * p + c];
             }
         }
     }
@@ -757,7 +803,7 @@ impl LocalModel for LogDetModel<'_> {
             self.pos[b * (b + 1) / 2 + a] = NONE;
         }
         self.active.clear();
-        self.ycol = NONE as usize;
+        self.ycount = 0;
     }
 
     fn value_along(&mut self, alpha: f64) -> Option<f64> {
