@@ -682,11 +682,20 @@ impl LogDetModel<'_> {
         lanes.iter_mut().for_each(|l| *l = [0.0; BLOCK]);
         // The block's rows of W, interleaved: wt[r][t] = W_{c₀+t, r}.
         let mut wt = std::mem::take(&mut self.wt);
-        wt.iter_mut().for_each(|l| *l = [0.0; BLOCK]);
-        for t in 0..count {
-            let row = &self.w[(c0 + t) * p..(c0 + t + 1) * p];
-            for (l, &v) in wt.iter_mut().zip(row) {
-                l[t] = v;
+        if count == BLOCK {
+            // Eight row streams in, one full 8-wide entry out per r.
+            let rows: [&[f64]; BLOCK] =
+                std::array::from_fn(|t| &self.w[(c0 + t) * p..(c0 + t + 1) * p]);
+            for (r, l) in wt.iter_mut().enumerate() {
+                *l = std::array::from_fn(|t| rows[t][r]);
+            }
+        } else {
+            wt.iter_mut().for_each(|l| *l = [0.0; BLOCK]);
+            for t in 0..count {
+                let row = &self.w[(c0 + t) * p..(c0 + t + 1) * p];
+                for (l, &v) in wt.iter_mut().zip(row) {
+                    l[t] = v;
+                }
             }
         }
         // The list is mostly grouped by column b (coordinates are first touched in index
