@@ -212,11 +212,7 @@ impl Design {
     #[inline]
     pub fn col_axpy(&self, j: usize, a: f64, v: &mut [f64]) {
         match &self.storage {
-            Storage::Dense(d) => {
-                for (vi, &x) in v.iter_mut().zip(&d[j * self.n..(j + 1) * self.n]) {
-                    *vi += a * x;
-                }
-            }
+            Storage::Dense(d) => crate::kernels::axpy(a, &d[j * self.n..(j + 1) * self.n], v),
             Storage::Sparse(s) => {
                 if let Some(col) = s.outer_view(j) {
                     for (i, &x) in col.iter() {
@@ -308,7 +304,7 @@ impl Design {
     }
 }
 
-pub(crate) use crate::dot::dot;
+pub(crate) use crate::kernels::dot;
 
 #[cfg(test)]
 mod tests {

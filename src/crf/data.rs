@@ -14,8 +14,8 @@
 //! transformation is recorded so the fitted model can be mapped back to the original units
 //! (see [`crate::crf::CrfModel`]).
 
-use crate::dot::dot;
 use crate::error::{Error, Result};
+use crate::kernels::dot;
 use crate::linalg::matmul;
 use ndarray::{Array2, ArrayView2, Axis};
 

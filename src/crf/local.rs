@@ -40,8 +40,8 @@
 
 use super::gram_cache::GramBlock;
 use super::loss::{sandwich, CrfLoss};
-use crate::dot::dot;
 use crate::error::{Error, Result};
+use crate::kernels::dot;
 use crate::linalg::{cholesky, matmul};
 use crate::loss::{InnerLoopHints, LocalModel};
 use ndarray::Array2;

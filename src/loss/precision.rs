@@ -51,8 +51,8 @@
 //! positive definite (far from the solution) or an ℓ2 term is present.
 
 use super::{LocalModel, Loss};
-use crate::dot::dot;
 use crate::error::{Error, Result};
+use crate::kernels::dot;
 use crate::linalg::{self, Cholesky};
 use crate::penalty::ResolvedPenalty;
 use ndarray::{Array2, ArrayView2};

@@ -247,9 +247,7 @@ impl<'x> WeightedColumns<'x> {
                 v[i as usize] += delta * wx;
             }
         } else {
-            for (vi, &wx) in v.iter_mut().zip(&self.weighted[a..b]) {
-                *vi += delta * wx;
-            }
+            crate::kernels::axpy(delta, &self.weighted[a..b], v);
         }
     }
 

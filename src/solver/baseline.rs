@@ -113,7 +113,7 @@ pub(crate) fn curvature_along_gradient(loss: &dyn Loss, x: &[f64], g: &[f64]) ->
     }
 }
 
-pub(crate) use crate::dot::dot;
+pub(crate) use crate::kernels::dot;
 
 /// F(x') − F(x) estimated without cancellation, for steps whose change of F is below the
 /// rounding noise of evaluating F, from the loss gradients g = ∇f(x) and g' = ∇f(x'): f by
