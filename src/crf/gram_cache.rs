@@ -51,11 +51,10 @@ impl GramPool {
     pub(crate) fn assemble(&self, data: &CrfData, wanted: &[usize]) -> GramBlock {
         let r = wanted.len();
         let cap = r.max(16);
-        let mut values = vec![0.0; cap * cap];
         if r == 0 {
             return GramBlock {
                 rows: Vec::new(),
-                values,
+                values: vec![0.0; cap * cap],
                 cap,
             };
         }
@@ -64,6 +63,7 @@ impl GramPool {
             // The same rows in the same order (the rule in the local phase): nothing to do.
             return old;
         }
+        let mut values = vec![0.0; cap * cap];
         let mut old_pos = vec![usize::MAX; data.p];
         for (a, &i) in old.rows.iter().enumerate() {
             old_pos[i] = a;

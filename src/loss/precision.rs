@@ -630,9 +630,10 @@ const BLOCK: usize = 8;
 /// coordinate of a column outside the block is asked for (the driver sweeps coordinates in
 /// index order, i.e. column by column, so this happens once per 8 columns and sweep), and
 /// kept exact in O(1) per column by every step (D_ab += δ changes y_c,a by δW_bc and y_c,b
-/// by δW_ac). One pass serves 8 columns because W is symmetric: the 8 factors W_{b,c₀..c₀+8}
-/// an entry needs are contiguous in row b, so the pass does 8-wide vector work for the price
-/// of its scattered loads and stores, which bound it. A coordinate then costs one
+/// by δW_ac). One pass serves 8 columns because W is symmetric: the 8 factors W_{c₀..c₀+8, b}
+/// an entry needs are the b-th entries of the block's 8 rows of W, which the pass first
+/// interleaves into one 8-wide entry per b; the pass then does 8-wide vector work for the
+/// price of its scattered loads and stores, which bound it. A coordinate then costs one
 /// contiguous inner product with w_i, and a step O(1): nothing of order p² is touched per
 /// coordinate, and the only O(p) memory traffic is the row w_i. Measured on the AR(1)
 /// precision race of benches/baselines.rs (p = 1000, about 5 000 entries in D): see the
@@ -795,13 +796,14 @@ impl LocalModel for LogDetModel<'_> {
             }
             q => self.active[q as usize].2 += delta,
         }
+        // W_{c,b} and W_{c,a} for the cached columns c, from the block pass's interleaved
+        // rows (the same values the pass used).
         let p = self.p;
+        let (wb, wa) = (self.wt[b], self.wt[a]);
         for t in 0..self.ycount {
-            let c = self.ycol + t;
-            // W_bc and W_ac, read from rows b and a (W is symmetric).
-            self.y[t * p + a] += delta * self.w[b * p + c];
+            self.y[t * p + a] += delta * wb[t];
             if a != b {
-                self.y[t * p + b] += delta * self.w[a * p + c];
+                self.y[t * p + b] += delta * wa[t];
             }
         }
     }
