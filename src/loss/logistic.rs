@@ -18,11 +18,13 @@
 //! intercept) and s ∈ \[0, 1\] the largest scaling that keeps u feasible.
 
 use super::glm::LinearData;
+use super::point_memo::PointMemo;
 use super::weighted_columns::{ColumnPool, WeightedColumns};
 use super::{InnerLoopHints, LocalModel, Loss};
 use crate::design::Design;
 use crate::error::{Error, Result};
 use crate::penalty::ResolvedPenalty;
+use crate::reuse::Reuse;
 use ndarray::ArrayView2;
 use sprs::CsMat;
 
@@ -74,6 +76,8 @@ pub struct Logistic {
     data: LinearData,
     /// Column buffers reused by successive local models.
     pool: ColumnPool,
+    /// η, π and the loss terms at the last point a model was built for or accepted.
+    memo: Reuse<PointMemo>,
 }
 
 impl Logistic {
@@ -96,6 +100,7 @@ impl Logistic {
         Ok(Self {
             data,
             pool: ColumnPool::default(),
+            memo: Reuse::default(),
         })
     }
 
@@ -154,13 +159,9 @@ impl Logistic {
         self.gradient_of_residual(&resid, None, g);
     }
 
-    /// ρ = y − σ(η), centred when there is an intercept.
-    fn centred_residual(&self, eta: &[f64]) -> Vec<f64> {
-        let mut rho: Vec<f64> = eta
-            .iter()
-            .zip(&self.data.y)
-            .map(|(&e, &y)| y - sigmoid(e))
-            .collect();
+    /// ρ = y − π with π = σ(η), centred when there is an intercept.
+    fn centred_residual(&self, pi: &[f64]) -> Vec<f64> {
+        let mut rho: Vec<f64> = pi.iter().zip(&self.data.y).map(|(&p, &y)| y - p).collect();
         if self.data.intercept {
             let mean = rho.iter().sum::<f64>() / rho.len() as f64;
             rho.iter_mut().for_each(|v| *v -= mean);
@@ -168,12 +169,13 @@ impl Logistic {
         rho
     }
 
-    /// The gap at x from η = Xb + b₀, the centred residual ρ (see `centred_residual`) and
-    /// the correlations x_jᵀρ/n of the features (see the module notes for the dual point).
+    /// The gap at x from the loss value f(x), the centred residual ρ (see
+    /// `centred_residual`) and the correlations x_jᵀρ/n of the features (see the module
+    /// notes for the dual point).
     fn gap_from(
         &self,
         x: &[f64],
-        eta: &[f64],
+        value: f64,
         rho: &[f64],
         corr: &[f64],
         pen: &ResolvedPenalty,
@@ -197,7 +199,7 @@ impl Logistic {
             .map(|(&r, &y)| neg_entropy(y - s * r))
             .sum::<f64>()
             / n;
-        let primal = self.value_at_eta(eta) + pen.value(x);
+        let primal = value + pen.value(x);
         Some(primal - dual)
     }
 
@@ -253,10 +255,10 @@ impl Loss for Logistic {
         if pen.l2.iter().any(|&v| v > 0.0) {
             return None; // no clean dual with the ℓ2 term
         }
-        let eta = self.data.eta(x);
-        let rho = self.centred_residual(&eta);
+        let (value, pi) = self.value_and_probabilities(x);
+        let rho = self.centred_residual(&pi);
         let corr = self.data.correlations(&rho);
-        self.gap_from(x, &eta, &rho, &corr, pen)
+        self.gap_from(x, value, &rho, &corr, pen)
     }
 
     fn duality_gap_with_gradient(
@@ -268,10 +270,10 @@ impl Loss for Logistic {
         if g.len() != self.dim() || pen.l2.iter().any(|&v| v > 0.0) {
             return self.duality_gap(x, pen);
         }
-        let eta = self.data.eta(x);
-        let rho = self.centred_residual(&eta);
+        let (value, pi) = self.value_and_probabilities(x);
+        let rho = self.centred_residual(&pi);
         let corr = self.data.correlations_from_gradient(g);
-        self.gap_from(x, &eta, &rho, &corr, pen)
+        self.gap_from(x, value, &rho, &corr, pen)
     }
 
     fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
@@ -288,20 +290,10 @@ impl Loss for Logistic {
 }
 
 impl Logistic {
-    fn model<'a>(
-        &'a self,
-        x: &[f64],
-        subset: Option<&[usize]>,
-    ) -> Result<Box<dyn LocalModel + 'a>> {
-        let cols = WeightedColumns::new(&self.data.x, &self.pool);
-        let n = self.data.n();
-        let mut eta = vec![0.0; n];
-        cols.matvec(x, &mut eta);
-        self.data.add_intercept(x, &mut eta);
-        // π = σ(η) once, for both the residual π − y and the weights π(1 − π), with the
-        // loss terms softplus(η_i) − y_i η_i from the same exponential.
+    /// π = σ(η) and Σ_i (softplus(η_i) − y_i η_i), from one exponential per row.
+    fn probabilities(&self, eta: &[f64]) -> (Vec<f64>, f64) {
         let mut total = 0.0;
-        let pi: Vec<f64> = eta
+        let pi = eta
             .iter()
             .zip(&self.data.y)
             .map(|(&e, &y)| {
@@ -310,6 +302,46 @@ impl Logistic {
                 p
             })
             .collect();
+        (pi, total)
+    }
+
+    /// f(x) and π = σ(η) at x, from the memo when it holds x (see `point_memo.rs`).
+    fn value_and_probabilities(&self, x: &[f64]) -> (f64, Vec<f64>) {
+        let memo = self.memo.take();
+        let n = self.data.n() as f64;
+        if memo.matches(x) {
+            let out = (memo.total / n, memo.pi.clone());
+            self.memo.give(memo);
+            return out;
+        }
+        let eta = self.data.eta(x);
+        let (pi, total) = self.probabilities(&eta);
+        (total / n, pi)
+    }
+
+    fn model<'a>(
+        &'a self,
+        x: &[f64],
+        subset: Option<&[usize]>,
+    ) -> Result<Box<dyn LocalModel + 'a>> {
+        let cols = WeightedColumns::new(&self.data.x, &self.pool);
+        let n = self.data.n();
+        let memo = self.memo.take();
+        let (eta, pi, total, mut x_copy) = if memo.matches(x) {
+            (memo.eta, memo.pi, memo.total, memo.x)
+        } else {
+            let mut eta = vec![0.0; n];
+            cols.matvec(x, &mut eta);
+            self.data.add_intercept(x, &mut eta);
+            let (pi, total) = self.probabilities(&eta);
+            let mut x_copy = memo.x;
+            x_copy.clear();
+            x_copy.extend_from_slice(x);
+            (eta, pi, total, x_copy)
+        };
+        if x_copy.is_empty() {
+            x_copy.extend_from_slice(x);
+        }
         let resid: Vec<f64> = pi.iter().zip(&self.data.y).map(|(&p, &y)| p - y).collect();
         let mut g = vec![0.0; self.dim()];
         self.gradient_of_residual(&resid, subset, &mut g);
@@ -318,7 +350,12 @@ impl Logistic {
         Ok(Box::new(LogisticModel {
             loss: self,
             f: total / n as f64,
+            total,
+            x: x_copy,
             eta,
+            pi,
+            trial: None,
+            handed_over: false,
             g,
             w,
             curv: vec![f64::NAN; m],
@@ -342,8 +379,17 @@ impl Logistic {
 /// coordinates; u = [X 1] d is rebuilt once, when the line search first asks for f(x + αd).
 struct LogisticModel<'a> {
     loss: &'a Logistic,
+    /// The point x, η = Xb + b₀ and π = σ(η) there.
+    x: Vec<f64>,
     eta: Vec<f64>,
+    pi: Vec<f64>,
     f: f64,
+    /// n·f.
+    total: f64,
+    /// The last line-search trial: α, η + αu, σ(η + αu) and n·f there.
+    trial: Option<Trial>,
+    /// Whether `accept` left a memo for the next model (else the model leaves its own).
+    handed_over: bool,
     g: Vec<f64>,
     /// IRLS weights π(1 − π).
     w: Vec<f64>,
@@ -360,6 +406,27 @@ struct LogisticModel<'a> {
     /// W u, kept current by every step.
     wu: Vec<f64>,
     inv_n: f64,
+}
+
+/// One line-search trial of the logistic model.
+struct Trial {
+    alpha: f64,
+    eta: Vec<f64>,
+    pi: Vec<f64>,
+    total: f64,
+}
+
+impl Drop for LogisticModel<'_> {
+    fn drop(&mut self) {
+        if !self.handed_over {
+            self.loss.memo.give(PointMemo {
+                x: std::mem::take(&mut self.x),
+                eta: std::mem::take(&mut self.eta),
+                pi: std::mem::take(&mut self.pi),
+                total: self.total,
+            });
+        }
+    }
 }
 
 impl LocalModel for LogisticModel<'_> {
@@ -444,23 +511,109 @@ impl LocalModel for LogisticModel<'_> {
             }
             self.u_current = true;
         }
-        let s: f64 = self
-            .eta
-            .iter()
-            .zip(&self.u)
-            .zip(&self.loss.data.y)
-            .map(|((&e, &u), &y)| {
-                let t = e + alpha * u;
-                softplus(t) - y * t
-            })
-            .sum();
+        // The trial's η + αu and σ(η + αu) are kept for `accept` (the buffers of the
+        // previous trial are reused).
+        let mut trial = self.trial.take().unwrap_or_else(|| Trial {
+            alpha,
+            eta: Vec::new(),
+            pi: Vec::new(),
+            total: 0.0,
+        });
+        trial.eta.clear();
+        trial.pi.clear();
+        let mut s = 0.0;
+        for ((&e, &u), &y) in self.eta.iter().zip(&self.u).zip(&self.loss.data.y) {
+            let t = e + alpha * u;
+            let (p, sp) = sigmoid_and_softplus(t);
+            s += sp - y * t;
+            trial.eta.push(t);
+            trial.pi.push(p);
+        }
+        trial.alpha = alpha;
+        trial.total = s;
+        self.trial = Some(trial);
         Some(s * self.inv_n)
+    }
+    fn accept(&mut self, alpha: f64, x_new: &[f64]) {
+        let Some(trial) = self.trial.take() else {
+            return;
+        };
+        if trial.alpha != alpha || !trial.total.is_finite() {
+            return;
+        }
+        let mut x = std::mem::take(&mut self.x);
+        x.clear();
+        x.extend_from_slice(x_new);
+        self.loss.memo.give(PointMemo {
+            x,
+            eta: trial.eta,
+            pi: trial.pi,
+            total: trial.total,
+        });
+        self.handed_over = true;
     }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The memo handed from a line search to the next model (and to the duality gap)
+    /// reproduces a fresh evaluation: the same loss value, gradient and gap at the accepted
+    /// point, to rounding (η + αu against X(x + αd)). The check is internal consistency
+    /// (cached against recomputed), so the data only need to be generic.
+    #[test]
+    fn memo_matches_a_fresh_evaluation() {
+        let (n, p) = (9, 4);
+        let x = ndarray::Array2::from_shape_fn((n, p), |(i, j)| {
+            ((i * 7 + j * 3) % 5) as f64 - 2.0 + 0.1 * j as f64
+        });
+        let y: Vec<f64> = (0..n).map(|i| ((i * 5) % 3 == 0) as u8 as f64).collect();
+        let loss = Logistic::from_dense(x.view(), &y, true).unwrap();
+        let fresh = loss.clone(); // a clone starts without a memo
+        let x0 = vec![0.2, 0.0, -0.1, 0.0, 0.05];
+        let mut model = loss.local_model(&x0).unwrap();
+        let steps = [(0, 0.3), (2, -0.2), (3, 0.15), (4, 0.1)];
+        for &(k, d) in &steps {
+            model.curvature(k);
+            model.step(k, d);
+        }
+        let alpha = 0.5;
+        let f_trial = model.value_along(alpha).unwrap();
+        let mut x1 = x0.clone();
+        for &(k, d) in &steps {
+            x1[k] += alpha * d;
+        }
+        model.accept(alpha, &x1);
+        drop(model);
+        let cached = loss.local_model(&x1).unwrap();
+        let direct = fresh.local_model(&x1).unwrap();
+        assert!((cached.value() - f_trial).abs() <= 1e-15 * f_trial.abs());
+        assert!((cached.value() - direct.value()).abs() <= 1e-14 * direct.value().abs());
+        for (a, b) in cached.gradient().iter().zip(direct.gradient()) {
+            assert!((a - b).abs() <= 1e-14, "{a} vs {b}");
+        }
+        let g = direct.gradient().to_vec();
+        drop(direct);
+        drop(cached);
+        let pen = ResolvedPenalty::new(&crate::Penalty::l1(0.01).unwrap(), 5, |k| {
+            loss.structural_factor(k)
+        })
+        .unwrap();
+        let (a, b) = (
+            loss.duality_gap_with_gradient(&x1, &g, &pen).unwrap(),
+            fresh.duality_gap_with_gradient(&x1, &g, &pen).unwrap(),
+        );
+        assert!((a - b).abs() <= 1e-14, "{a} vs {b}");
+        // A memo is used only at its own point.
+        let mut other = x1.clone();
+        other[1] = 0.25;
+        let (m1, m2) = (
+            loss.local_model(&other).unwrap(),
+            fresh.local_model(&other).unwrap(),
+        );
+        assert_eq!(m1.value().to_bits(), m2.value().to_bits());
+    }
 
     #[test]
     fn one_exponential_gives_the_same_sigmoid_and_softplus() {

@@ -153,6 +153,11 @@ pub trait LocalModel {
     /// f(x + α d) for the current direction d, or `None` outside the domain. Should reuse
     /// cached products (the line search calls it several times per iteration).
     fn value_along(&mut self, alpha: f64) -> Option<f64>;
+    /// Called by the driver when its line search accepts the point `x_new` = x + αd, right
+    /// after the model's last [`LocalModel::value_along`] call, which was at this α. A model
+    /// may keep what it computed there for the loss's next model at `x_new` (the logistic
+    /// model keeps the linear predictor, see `point_memo.rs`). The default does nothing.
+    fn accept(&mut self, _alpha: f64, _x_new: &[f64]) {}
     /// The optional Newton-CD inner-loop strategies this model allows (see
     /// [`InnerLoopHints`]; none by default).
     fn inner_loop_hints(&self) -> InnerLoopHints {
@@ -187,6 +192,7 @@ pub trait LocalModel {
 mod glm;
 pub mod least_squares;
 pub mod logistic;
+mod point_memo;
 pub mod precision;
 mod weighted_columns;
 

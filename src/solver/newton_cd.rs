@@ -285,6 +285,8 @@ impl NewtonCd {
                 &all
             }
         };
+        // The loss's scale of each coordinate's KKT residual, read once.
+        let scale: Vec<f64> = (0..m).map(|k| loss.residual_scale(k)).collect();
         let mut target = x.clone(); // x + d on the free set
         let mut free: Vec<usize> = Vec::new();
         let mut g = vec![0.0; m];
@@ -307,8 +309,7 @@ impl NewtonCd {
             let objective = model.value() + pen.value(&x);
             let kkt = candidates.iter().fold(0.0f64, |r, &k| {
                 let gk = g[k] + pen.l2[k] * x[k];
-                let v = crate::penalty::coordinate_residual(x[k], gk, pen.l1[k])
-                    * loss.residual_scale(k);
+                let v = crate::penalty::coordinate_residual(x[k], gk, pen.l1[k]) * scale[k];
                 if v > r || v.is_nan() {
                     v
                 } else {
@@ -438,11 +439,12 @@ impl NewtonCd {
                 }
                 alpha *= 0.5;
             }
-            drop(model);
             let Some(alpha) = accepted else {
                 break (Status::LineSearchFailed, (objective, kkt));
             };
             let mut moved = false;
+            // The model outlives the update of x so that `accept` can hand the values of its
+            // accepted trial to the next model (see `LocalModel::accept`).
             for &k in &free {
                 let v = if alpha == 1.0 {
                     target[k]
@@ -458,6 +460,8 @@ impl NewtonCd {
                 // the same model and direction, so stop here instead of looping.
                 break (Status::LineSearchFailed, (objective, kkt));
             }
+            model.accept(alpha, &x);
+            drop(model);
             iteration += 1;
         };
         // Every exit leaves g = ∇f(x) at the final x; over all coordinates unless the
