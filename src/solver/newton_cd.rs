@@ -307,15 +307,20 @@ impl NewtonCd {
                 run.fix_scale(loss, &g); // x is the default start if the scale was deferred
             }
             let objective = model.value() + pen.value(&x);
-            let kkt = candidates.iter().fold(0.0f64, |r, &k| {
+            // The KKT residual and the free set F = {x_k ≠ 0} ∪ {|g_k| ≥ λ_k} in one pass over
+            // the candidates (the free set is rebuilt below for a cold-start working set).
+            free.clear();
+            let mut kkt = 0.0f64;
+            for &k in candidates {
                 let gk = g[k] + pen.l2[k] * x[k];
                 let v = crate::penalty::coordinate_residual(x[k], gk, pen.l1[k]) * scale[k];
-                if v > r || v.is_nan() {
-                    v
-                } else {
-                    r
+                if v > kkt || v.is_nan() {
+                    kkt = v;
                 }
-            });
+                if x[k] != 0.0 || gk.abs() >= pen.l1[k] {
+                    free.push(k);
+                }
+            }
             let gap = if run.wants_gap(&self.options) {
                 loss.duality_gap(&x, &pen)
             } else {
@@ -334,20 +339,16 @@ impl NewtonCd {
                 break (s, (objective, kkt));
             }
 
-            // 2. Free set.
-            free.clear();
-            let entry = if iteration == 0
+            // 2. Free set (built above), or from a cold start only the strongest violators.
+            if iteration == 0
                 && self.cd.first_step_working_set
                 && model.inner_loop_hints().cold_start_working_set
             {
-                cold_start_entry(candidates, &x, &g, &pen)
-            } else {
-                1.0
-            };
-            for &k in candidates {
-                let gk = g[k] + pen.l2[k] * x[k];
-                if x[k] != 0.0 || gk.abs() >= pen.l1[k] * entry {
-                    free.push(k);
+                let entry = cold_start_entry(candidates, &x, &g, &pen);
+                if entry != 1.0 {
+                    free.retain(|&k| {
+                        x[k] != 0.0 || (g[k] + pen.l2[k] * x[k]).abs() >= pen.l1[k] * entry
+                    });
                 }
             }
             for &k in &free {
