@@ -327,7 +327,7 @@ impl Logistic {
         let cols = WeightedColumns::new(&self.data.x, &self.pool);
         let n = self.data.n();
         let memo = self.memo.take();
-        let (eta, pi, total, mut x_copy) = if memo.matches(x) {
+        let (eta, pi, total, x_copy) = if memo.matches(x) {
             (memo.eta, memo.pi, memo.total, memo.x)
         } else {
             let mut eta = vec![0.0; n];
@@ -339,9 +339,6 @@ impl Logistic {
             x_copy.extend_from_slice(x);
             (eta, pi, total, x_copy)
         };
-        if x_copy.is_empty() {
-            x_copy.extend_from_slice(x);
-        }
         let resid: Vec<f64> = pi.iter().zip(&self.data.y).map(|(&p, &y)| p - y).collect();
         let mut g = vec![0.0; self.dim()];
         self.gradient_of_residual(&resid, subset, &mut g);
