@@ -21,7 +21,8 @@ use super::loss::CrfLoss;
 use crate::error::Result;
 use crate::loss::{LocalModel, Loss};
 use crate::penalty::{Penalty, ResolvedPenalty};
-use crate::solver::newton_cd::{coordinate_sweeps, CdOptions, ROUNDING_DECREASE};
+use crate::solver::inner_sweeps::coordinate_sweeps;
+use crate::solver::newton_cd::{CdOptions, ROUNDING_DECREASE};
 use crate::solver::{Observer, Run, Solution, SolverOptions, Status, TraceRecord};
 
 /// The alternating Θ-step / Λ-step solver (see the module docs).

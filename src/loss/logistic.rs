@@ -405,6 +405,33 @@ struct LogisticModel<'a> {
     inv_n: f64,
 }
 
+impl LogisticModel<'_> {
+    /// Rebuilds u = [X 1] d from the coordinates of d, unless it is current.
+    fn refresh_u(&mut self) {
+        if self.u_current {
+            return;
+        }
+        self.u.iter_mut().for_each(|v| *v = 0.0);
+        // `touched` may list a coordinate twice (its d returned to 0 and moved again);
+        // sort and deduplicate so each column enters u once.
+        self.touched.sort_unstable();
+        self.touched.dedup();
+        let p = self.loss.data.p();
+        for &k in &self.touched {
+            let dk = self.d[k];
+            if dk == 0.0 {
+                continue;
+            }
+            if k == p {
+                self.u.iter_mut().for_each(|u| *u += dk); // the intercept
+            } else {
+                self.cols.axpy(k, dk, &mut self.u);
+            }
+        }
+        self.u_current = true;
+    }
+}
+
 /// One line-search trial of the logistic model.
 struct Trial {
     alpha: f64,
@@ -488,26 +515,7 @@ impl LocalModel for LogisticModel<'_> {
         }
     }
     fn value_along(&mut self, alpha: f64) -> Option<f64> {
-        if !self.u_current {
-            self.u.iter_mut().for_each(|v| *v = 0.0);
-            // `touched` may list a coordinate twice (its d returned to 0 and moved again);
-            // sort and deduplicate so each column enters u once.
-            self.touched.sort_unstable();
-            self.touched.dedup();
-            let p = self.loss.data.p();
-            for &k in &self.touched {
-                let dk = self.d[k];
-                if dk == 0.0 {
-                    continue;
-                }
-                if k == p {
-                    self.u.iter_mut().for_each(|u| *u += dk); // the intercept
-                } else {
-                    self.cols.axpy(k, dk, &mut self.u);
-                }
-            }
-            self.u_current = true;
-        }
+        self.refresh_u();
         // The trial's η + αu and σ(η + αu) are kept for `accept` (the buffers of the
         // previous trial are reused).
         let mut trial = self.trial.take().unwrap_or_else(|| Trial {

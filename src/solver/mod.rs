@@ -16,6 +16,7 @@
 pub mod admm;
 mod baseline;
 pub mod fista;
+pub(crate) mod inner_sweeps;
 pub mod newton_cd;
 pub mod owlqn;
 

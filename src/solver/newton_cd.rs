@@ -43,10 +43,11 @@
 //! line-search rule); "Proximal Newton-type methods for minimizing composite functions",
 //! SIAM J. Optimization, 2014 (inexact inner solves and their forcing terms).
 
+use super::inner_sweeps::coordinate_sweeps;
 use super::{Run, Scale, Solution, Solver, SolverOptions, Status, TraceRecord};
 use crate::error::Result;
 use crate::loss::{LocalModel, Loss};
-use crate::penalty::{soft_threshold, Penalty, ResolvedPenalty};
+use crate::penalty::{Penalty, ResolvedPenalty};
 
 /// Relative size of a predicted decrease below which a fresh evaluation of F cannot reliably
 /// confirm it: F is a sum of many terms and carries rounding errors from ε·|F| up to about
@@ -517,161 +518,6 @@ fn cold_start_entry(candidates: &[usize], x: &[f64], g: &[f64], pen: &ResolvedPe
     }
 }
 
-/// Cyclic coordinate descent over `free` on the penalised quadratic model
-/// `q(d) = gᵀd + ½dᵀHd + Σ_k λ_k|x_k + d_k|` (ℓ2 term included), with `target = x + d`
-/// updated in place: for a = H_kk, b = g_k + (Hd)_k, c = x_k + d_k the new value is
-/// `S(c − b/a, λ_k/a)`. Stops after a sweep whose largest scaled change a·|Δ| is at most
-/// `threshold`, or after `cd.max_inner_sweeps`. Steps are over-relaxed as
-/// `cd.relaxation` says (see [`over_relaxed`] and [`adaptive_relaxation`]); the stopping
-/// test always measures the plain step. Returns the sweeps done, whether the threshold was
-/// met, and the change of the penalised model over the sweeps ([`Sweeps`]).
-pub(crate) fn coordinate_sweeps(
-    model: &mut dyn LocalModel,
-    pen: &ResolvedPenalty,
-    g: &[f64],
-    free: &[usize],
-    target: &mut [f64],
-    threshold: f64,
-    cd: &CdOptions,
-) -> Sweeps {
-    let adaptive = cd.relaxation.is_none() && model.inner_loop_hints().over_relaxation;
-    let mut omega = cd.relaxation.unwrap_or(1.0);
-    // Scaled energy Σ a·Δ² of the plain updates in the previous sweep, when that sweep ran
-    // with the current ω (adaptive ω).
-    let mut previous: Option<f64> = None;
-    // The per-coordinate data of the free set, gathered once into contiguous slots (the
-    // free set is a scattered subset of the coordinates, and a sweep that reads g, λ,
-    // H_kk and x + d at each k touches a new cache line of every one of those arrays).
-    let mut slots: Vec<Slot> = free
-        .iter()
-        .map(|&k| {
-            let a = model.curvature(k) + pen.l2[k];
-            Slot {
-                k,
-                a,
-                g: g[k],
-                t: pen.l1[k] / a,
-                l2: pen.l2[k],
-                c: target[k],
-            }
-        })
-        // A coordinate without positive finite curvature has no coordinate minimiser; it
-        // keeps its value.
-        .filter(|s| s.a > 0.0 && s.a.is_finite())
-        .collect();
-    let mut count = 0;
-    let mut settled = false;
-    let mut model_change = 0.0;
-    for sweep in 0..cd.max_inner_sweeps.max(1) {
-        let mut biggest = 0.0f64;
-        let mut energy = 0.0f64;
-        for slot in slots.iter_mut() {
-            let a = slot.a;
-            let c = slot.c;
-            let b = slot.g + slot.l2 * c + model.hd(slot.k);
-            let z = soft_threshold(c - b / a, slot.t);
-            if z != c {
-                let change = a * (z - c).abs();
-                biggest = biggest.max(change);
-                energy += change * (z - c).abs();
-                let z = over_relaxed(c, z, omega);
-                // Exact change of the penalised quadratic model along coordinate k:
-                // b·δ + ½aδ² + λ_k(|z| − |c|), with λ_k = a·t.
-                let step = z - c;
-                model_change += step * (b + 0.5 * a * step) + a * slot.t * (z.abs() - c.abs());
-                model.step(slot.k, step);
-                slot.c = z;
-            }
-        }
-        count += 1;
-        if biggest <= threshold {
-            settled = true;
-            break;
-        }
-        if adaptive && sweep >= 1 {
-            if let Some(e) = previous.filter(|&e| e > 0.0) {
-                let w = adaptive_relaxation((energy / e).sqrt(), omega);
-                if w > omega {
-                    omega = w;
-                    previous = None;
-                    continue;
-                }
-            }
-            previous = Some(energy);
-        }
-    }
-    for slot in &slots {
-        target[slot.k] = slot.c;
-    }
-    Sweeps {
-        count,
-        settled,
-        model_change,
-    }
-}
-
-/// What [`coordinate_sweeps`] did.
-pub(crate) struct Sweeps {
-    /// Sweeps run.
-    pub(crate) count: usize,
-    /// Whether the stopping threshold was met.
-    pub(crate) settled: bool,
-    /// q(d) − q(d₀) of the penalised quadratic model (≤ 0).
-    pub(crate) model_change: f64,
-}
-
-/// One free coordinate k of the inner loop: a = H_kk + ℓ2 weight, g_k, the threshold
-/// t = λ_k/a of its soft-thresholding step (fixed for the whole inner loop, so divided once
-/// rather than at every visit), its ℓ2 weight, and the current value c = x_k + d_k.
-struct Slot {
-    k: usize,
-    a: f64,
-    g: f64,
-    t: f64,
-    l2: f64,
-    c: f64,
-}
-
-/// The SOR factor ω' for the next sweeps, given the contraction `rate` of the update sizes
-/// per sweep observed under factor ω. Young's relation for consistently ordered systems,
-/// (rate + ω − 1)² = rate·ω²·μ², recovers the squared Jacobi spectral radius μ², and
-/// ω' = 2/(1 + √(1 − μ²)) is the optimal factor ("Iterative solution of large linear
-/// systems", Academic Press, 1971; the same re-estimation loop is the adaptive SOR of
-/// "Applied iterative methods", Academic Press, 1981). Early sweeps damp the fast error
-/// components first and underestimate μ, so ω only grows from one estimate to the next;
-/// clamped to [1, 1.8], a margin below the divergence bound 2 for a noisy estimate.
-fn adaptive_relaxation(rate: f64, omega: f64) -> f64 {
-    if !(rate > 0.0 && rate < 1.0) {
-        return omega;
-    }
-    let mu2 = (rate + omega - 1.0).powi(2) / (rate * omega * omega);
-    if mu2.is_nan() || mu2 >= 1.0 {
-        return omega;
-    }
-    (2.0 / (1.0 + (1.0 - mu2).sqrt())).clamp(1.0, 1.8)
-}
-
-/// Over-relaxed coordinate update: from c, the exact coordinate minimiser z is replaced by
-/// r = c + ω(z − c) when c, z and r lie in one closed orthant with z ≠ 0. There the penalised
-/// model is a smooth quadratic along the coordinate, symmetric about z, so for ω ∈ (0, 2)
-/// the step still decreases it (by a·(ω − ω²/2)·(z − c)², against a·(z − c)²/2 for ω = 1):
-/// successive over-relaxation restricted to the current orthant ("Iterative solution of
-/// large linear systems", Academic Press, 1971, for SOR on symmetric positive-definite
-/// systems). Across a kink (a sign change, or z = 0) the plain update is kept, so zeros stay
-/// exact.
-#[inline]
-fn over_relaxed(c: f64, z: f64, omega: f64) -> f64 {
-    if omega == 1.0 || z == 0.0 || (c != 0.0 && c.signum() != z.signum()) {
-        return z;
-    }
-    let r = c + omega * (z - c);
-    if r.signum() == z.signum() && r != 0.0 {
-        r
-    } else {
-        z
-    }
-}
-
 /// Replaces the coordinate-descent direction by the reduced Newton direction on the active
 /// set when that is well defined and keeps the signs; otherwise leaves it unchanged.
 /// On return the model's cached direction matches `target − x`.
@@ -766,62 +612,6 @@ fn subspace_newton(
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    /// φ(t) = b·t + ½a·t² + λ|c + t|, the penalised model along one coordinate from c.
-    fn along(a: f64, b: f64, lambda: f64, c: f64, t: f64) -> f64 {
-        b * t + 0.5 * a * t * t + lambda * (c + t).abs()
-    }
-
-    #[test]
-    fn over_relaxed_steps_still_descend_and_keep_zeros_exact() {
-        // Deterministic grid over curvature, slope, λ, start and ω.
-        for &a in &[0.3, 1.0, 7.0] {
-            for &b in &[-3.0, -0.4, 0.0, 0.2, 2.5] {
-                for &lambda in &[0.0, 0.1, 1.0] {
-                    for &c in &[-2.0, -0.05, 0.0, 0.3, 4.0] {
-                        let z = soft_threshold(c - b / a, lambda / a);
-                        for &omega in &[0.5, 1.0, 1.5, 1.9] {
-                            let r = over_relaxed(c, z, omega);
-                            let f0 = along(a, b, lambda, c, 0.0);
-                            let fr = along(a, b, lambda, c, r - c);
-                            assert!(fr <= f0 + 1e-12, "a {a} b {b} λ {lambda} c {c} ω {omega}");
-                            if z == 0.0 {
-                                assert_eq!(r, 0.0);
-                            }
-                            if r != z {
-                                // Relaxed only inside one orthant.
-                                assert_eq!(r.signum(), z.signum());
-                                assert!(c == 0.0 || c.signum() == z.signum());
-                            }
-                        }
-                    }
-                }
-            }
-        }
-    }
-
-    #[test]
-    fn adaptive_relaxation_matches_the_model_problem_optimum() {
-        // Tridiagonal (−1, 2, −1) of order N, a consistently ordered matrix: the Jacobi
-        // spectral radius is μ = cos(π/(N+1)), Gauss–Seidel contracts by μ² per sweep and
-        // the optimal SOR factor is 2/(1 + sin(π/(N+1))) ("Iterative solution of large
-        // linear systems", Academic Press, 1971; textbook closed form).
-        for n in [3usize, 5, 8] {
-            let h = std::f64::consts::PI / (n + 1) as f64;
-            let mu = h.cos();
-            let optimum = 2.0 / (1.0 + h.sin());
-            let from_gs = adaptive_relaxation(mu * mu, 1.0);
-            assert!((from_gs - optimum.min(1.8)).abs() < 1e-12, "N {n}");
-            // At the optimum SOR contracts by ω − 1: the estimate is a fixed point.
-            if optimum < 1.8 {
-                let again = adaptive_relaxation(optimum - 1.0, optimum);
-                assert!((again - optimum).abs() < 1e-12);
-            }
-        }
-        // No information, no change.
-        assert_eq!(adaptive_relaxation(1.2, 1.3), 1.3);
-        assert_eq!(adaptive_relaxation(0.0, 1.0), 1.0);
-    }
 
     /// The forcing rule (after choice 1 of "Choosing the forcing terms in an inexact
     /// Newton method", SIAM J. Sci. Comput., 1996), with our floor and cap.
