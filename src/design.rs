@@ -16,7 +16,62 @@ enum Storage {
     /// Column-major values, column j at `data[j*n .. (j+1)*n]`.
     Dense(Vec<f64>),
     /// Compressed sparse columns.
-    Sparse(CsMat<f64>),
+    Sparse(Csc),
+}
+
+/// Compressed sparse columns in plain vectors: column j's row indices (increasing) and
+/// values are `rows[start[j]..start[j + 1]]` and `values[start[j]..start[j + 1]]`.
+///
+/// The design keeps its own copy of the arrays of the caller's `CsMat` rather than the
+/// `CsMat` itself: with the `CsMat` inside `Storage`, code built at opt-level 1 and 2
+/// (the crate's test profile) hoisted the sparse matrix's storage-kind lookup out of
+/// `match` arms into the dense path, where it read an uninitialised byte and used it as a
+/// table index (found by a panic-probe run: SIGSEGV in `matvec` on a dense design;
+/// valgrind reports the uninitialised read on a 4 × 1 dense design). Plain vectors avoid
+/// that lookup, and column access needs no offset or storage-kind check.
+#[derive(Debug, Clone, PartialEq)]
+struct Csc {
+    start: Vec<usize>,
+    rows: Vec<usize>,
+    values: Vec<f64>,
+}
+
+impl Csc {
+    /// From a matrix already in CSC form.
+    fn from_csc(x: CsMat<f64>) -> Self {
+        debug_assert!(x.is_csc());
+        let (start, rows, values) = x.into_raw_storage();
+        // An owned matrix's pointers normally start at 0; shift them if they do not.
+        let base = start.first().copied().unwrap_or(0);
+        let (start, rows, values) = if base == 0 {
+            (start, rows, values)
+        } else {
+            let end = *start.last().unwrap_or(&base);
+            (
+                start.iter().map(|s| s - base).collect(),
+                rows[base..end].to_vec(),
+                values[base..end].to_vec(),
+            )
+        };
+        Self {
+            start,
+            rows,
+            values,
+        }
+    }
+
+    /// Row indices and values of column j (empty for j out of range).
+    #[inline]
+    fn col(&self, j: usize) -> (&[usize], &[f64]) {
+        match (self.start.get(j), self.start.get(j + 1)) {
+            (Some(&a), Some(&b)) => (&self.rows[a..b], &self.values[a..b]),
+            _ => (&[], &[]),
+        }
+    }
+
+    fn nnz(&self) -> usize {
+        self.values.len()
+    }
 }
 
 /// A validated design matrix with fast column access.
@@ -103,7 +158,7 @@ impl Design {
         Ok(Self {
             n,
             p,
-            storage: Storage::Sparse(x),
+            storage: Storage::Sparse(Csc::from_csc(x)),
         })
     }
 
@@ -149,10 +204,9 @@ impl Design {
                 }
             }
             Storage::Sparse(s) => {
-                if let Some(col) = s.outer_view(j) {
-                    for (i, &v) in col.iter() {
-                        f(i, v);
-                    }
+                let (rows, values) = s.col(j);
+                for (&i, &v) in rows.iter().zip(values) {
+                    f(i, v);
                 }
             }
         }
@@ -163,10 +217,10 @@ impl Design {
     pub fn col_dot(&self, j: usize, v: &[f64]) -> f64 {
         match &self.storage {
             Storage::Dense(d) => dot(&d[j * self.n..(j + 1) * self.n], v),
-            Storage::Sparse(s) => match s.outer_view(j) {
-                Some(col) => col.iter().map(|(i, &x)| x * v[i]).sum(),
-                None => 0.0,
-            },
+            Storage::Sparse(s) => {
+                let (rows, values) = s.col(j);
+                rows.iter().zip(values).map(|(&i, &x)| x * v[i]).sum()
+            }
         }
     }
 
@@ -179,10 +233,13 @@ impl Design {
                 .zip(w.iter().zip(v))
                 .map(|(&x, (&a, &b))| x * a * b)
                 .sum(),
-            Storage::Sparse(s) => match s.outer_view(j) {
-                Some(col) => col.iter().map(|(i, &x)| x * w[i] * v[i]).sum(),
-                None => 0.0,
-            },
+            Storage::Sparse(s) => {
+                let (rows, values) = s.col(j);
+                rows.iter()
+                    .zip(values)
+                    .map(|(&i, &x)| x * w[i] * v[i])
+                    .sum()
+            }
         }
     }
 
@@ -214,10 +271,9 @@ impl Design {
         match &self.storage {
             Storage::Dense(d) => crate::kernels::axpy(a, &d[j * self.n..(j + 1) * self.n], v),
             Storage::Sparse(s) => {
-                if let Some(col) = s.outer_view(j) {
-                    for (i, &x) in col.iter() {
-                        v[i] += a * x;
-                    }
+                let (rows, values) = s.col(j);
+                for (&i, &x) in rows.iter().zip(values) {
+                    v[i] += a * x;
                 }
             }
         }
@@ -275,8 +331,9 @@ impl Design {
                     first[old] = new;
                 }
                 let mut tri = sprs::TriMat::new((m, self.p));
-                for (j, col) in s.outer_iterator().enumerate() {
-                    for (i, &v) in col.iter() {
+                for j in 0..self.p {
+                    let (col_rows, col_values) = s.col(j);
+                    for (&i, &v) in col_rows.iter().zip(col_values) {
                         let mut k = first[i];
                         while k != usize::MAX {
                             tri.add_triplet(k, j, v);
@@ -287,7 +344,7 @@ impl Design {
                 Design {
                     n: m,
                     p: self.p,
-                    storage: Storage::Sparse(tri.to_csc()),
+                    storage: Storage::Sparse(Csc::from_csc(tri.to_csc())),
                 }
             }
         }
