@@ -206,8 +206,13 @@ fn crf_problem(
     }
     let sigma = linalg::cholesky(lam.view()).expect("SPD chain").inverse();
     let l = linalg::cholesky(sigma.view()).expect("SPD").lower();
-    let mean = linalg::matmul(linalg::matmul(x.view(), th.view()).view(), sigma.view()) * -1.0;
-    let noise = linalg::matmul(normal_matrix(&mut rng, n, q).view(), l.t());
+    let mean = linalg::matmul(
+        linalg::matmul(x.view(), th.view()).unwrap().view(),
+        sigma.view(),
+    )
+    .unwrap()
+        * -1.0;
+    let noise = linalg::matmul(normal_matrix(&mut rng, n, q).view(), l.t()).unwrap();
     let y = mean + noise;
     let data = CrfData::new(x.view(), y.view(), true, false, InputMode::Auto).expect("data");
     let loss = CrfLoss::new(data, 0.05, 0.05).expect("valid λ");

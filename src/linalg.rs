@@ -95,34 +95,48 @@ impl Cholesky {
 
     /// x = A⁻¹ b, by the triangular solves L y = b and Lᵀ x = y.
     ///
-    /// # Panics
-    /// If `b.len()` differs from [`dim`](Self::dim).
-    pub fn solve(&self, b: &[f64]) -> Vec<f64> {
-        assert_eq!(
-            b.len(),
-            self.dim(),
-            "Cholesky::solve: right-hand side has length {}, the matrix is {} x {}",
-            b.len(),
-            self.dim(),
-            self.dim()
-        );
+    /// # Errors
+    /// [`Error::ShapeMismatch`] if `b.len()` differs from [`dim`](Self::dim).
+    pub fn solve(&self, b: &[f64]) -> Result<Vec<f64>> {
+        self.check_rhs("Cholesky::solve right-hand side", b.len(), "length")?;
+        Ok(self.inner.solve(b))
+    }
+
+    /// [`Self::solve`] for callers inside the crate whose shapes hold by construction.
+    pub(crate) fn apply_inverse(&self, b: &[f64]) -> Vec<f64> {
+        debug_assert_eq!(b.len(), self.dim());
         self.inner.solve(b)
     }
 
     /// X = A⁻¹ B for an n × k matrix B (all k columns at once).
     ///
-    /// # Panics
-    /// If `b.nrows()` differs from [`dim`](Self::dim).
-    pub fn solve_mat(&self, b: ArrayView2<f64>) -> Array2<f64> {
-        assert_eq!(
-            b.nrows(),
-            self.dim(),
-            "Cholesky::solve_mat: right-hand side has {} rows, the matrix is {} x {}",
-            b.nrows(),
-            self.dim(),
-            self.dim()
-        );
+    /// # Errors
+    /// [`Error::ShapeMismatch`] if `b.nrows()` differs from [`dim`](Self::dim).
+    pub fn solve_mat(&self, b: ArrayView2<f64>) -> Result<Array2<f64>> {
+        self.check_rhs("Cholesky::solve_mat right-hand side", b.nrows(), "rows")?;
+        Ok(self.inner.solve_mat(b))
+    }
+
+    /// [`Self::solve_mat`] for callers inside the crate whose shapes hold by construction.
+    pub(crate) fn apply_inverse_mat(&self, b: ArrayView2<f64>) -> Array2<f64> {
+        debug_assert_eq!(b.nrows(), self.dim());
         self.inner.solve_mat(b)
+    }
+
+    fn check_rhs(&self, what: &str, found: usize, unit: &str) -> Result<()> {
+        if found == self.dim() {
+            return Ok(());
+        }
+        Err(Error::ShapeMismatch {
+            what: what.to_string(),
+            expected: format!(
+                "{} {unit} (the matrix is {} x {})",
+                self.dim(),
+                self.dim(),
+                self.dim()
+            ),
+            found: format!("{found} {unit}"),
+        })
     }
 
     /// The lower-triangular factor L (zeros above the diagonal), e.g. to draw samples from
@@ -169,18 +183,28 @@ pub fn sym_eigen(a: ArrayView2<f64>) -> Result<(Vec<f64>, Array2<f64>)> {
 /// C = A B, the dense product of an m × k and a k × n matrix, through the backend's
 /// (multithreaded) GEMM. Inputs may have any layout; C is in standard layout.
 ///
-/// # Panics
-/// If `a.ncols() != b.nrows()`.
-pub fn matmul(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
-    assert_eq!(
-        a.ncols(),
-        b.nrows(),
-        "matmul: inner dimensions differ ({} x {} times {} x {})",
-        a.nrows(),
-        a.ncols(),
-        b.nrows(),
-        b.ncols()
-    );
+/// # Errors
+/// [`Error::ShapeMismatch`] if `a.ncols() != b.nrows()`.
+pub fn matmul(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Result<Array2<f64>> {
+    if a.ncols() != b.nrows() {
+        return Err(Error::ShapeMismatch {
+            what: "matmul inner dimensions".to_string(),
+            expected: format!("{} rows in the right factor", a.ncols()),
+            found: format!(
+                "{} x {} times {} x {}",
+                a.nrows(),
+                a.ncols(),
+                b.nrows(),
+                b.ncols()
+            ),
+        });
+    }
+    Ok(gemm(a, b))
+}
+
+/// [`matmul`] for callers inside the crate whose shapes hold by construction.
+pub(crate) fn gemm(a: ArrayView2<f64>, b: ArrayView2<f64>) -> Array2<f64> {
+    debug_assert_eq!(a.ncols(), b.nrows());
     let (m, k, n) = (a.nrows(), a.ncols(), b.ncols());
     let mut c = Array2::zeros((m, n));
     if m == 0 || n == 0 || k == 0 {
@@ -637,7 +661,7 @@ mod tests {
         let expected_inv = array![[3.0, -2.0], [-2.0, 4.0]] / 8.0;
         assert!(max_abs_diff(&inv, &expected_inv) < 1e-15, "{inv}");
         // A x = [2, 1]: x = [[3,-2],[-2,4]]·[2,1]/8 = [4, 0]/8.
-        let x = c.solve(&[2.0, 1.0]);
+        let x = c.solve(&[2.0, 1.0]).unwrap();
         assert!((x[0] - 0.5).abs() < 1e-15 && x[1].abs() < 1e-15, "{x:?}");
     }
 
@@ -684,7 +708,7 @@ mod tests {
         }
         let err = identity_error(&naive_matmul(&inv, &a));
         assert!(err < 1e-12, "|A⁻¹A − I|∞ = {err}");
-        let err = identity_error(&matmul(a.view(), inv.view()));
+        let err = identity_error(&matmul(a.view(), inv.view()).unwrap());
         assert!(err < 1e-12, "|A A⁻¹ − I|∞ = {err}");
     }
 
@@ -695,16 +719,16 @@ mod tests {
         let c = cholesky(a.view()).expect("SPD");
         let mut rng = StdRng::seed_from_u64(12);
         let b = random_matrix(&mut rng, n, 5);
-        let x = c.solve_mat(b.view());
+        let x = c.solve_mat(b.view()).unwrap();
         assert!(x.is_standard_layout());
         assert!(max_abs_diff(&naive_matmul(&a, &x), &b) < 1e-12);
         // Column-major right-hand side.
         let mut bf = Array2::zeros((n, 5).f());
         bf.assign(&b);
-        assert!(max_abs_diff(&c.solve_mat(bf.view()), &x) < 1e-14);
+        assert!(max_abs_diff(&c.solve_mat(bf.view()).unwrap(), &x) < 1e-14);
         // Vector solve, column by column.
         for j in 0..5 {
-            let xj = c.solve(&b.column(j).to_vec());
+            let xj = c.solve(&b.column(j).to_vec()).unwrap();
             for i in 0..n {
                 assert!((xj[i] - x[[i, j]]).abs() < 1e-12);
             }
@@ -750,12 +774,29 @@ mod tests {
         assert_eq!(c.dim(), 0);
         assert_eq!(c.log_det(), 0.0);
         assert_eq!(c.inverse().dim(), (0, 0));
-        assert!(c.solve(&[]).is_empty());
-        assert_eq!(c.solve_mat(Array2::zeros((0, 3)).view()).dim(), (0, 3));
+        assert!(c.solve(&[]).unwrap().is_empty());
+        assert_eq!(
+            c.solve_mat(Array2::zeros((0, 3)).view()).unwrap().dim(),
+            (0, 3)
+        );
         let (v, u) = sym_eigen(Array2::<f64>::zeros((0, 0)).view()).unwrap();
         assert!(v.is_empty() && u.dim() == (0, 0));
-        let m = matmul(Array2::zeros((3, 0)).view(), Array2::zeros((0, 2)).view());
+        let m = matmul(Array2::zeros((3, 0)).view(), Array2::zeros((0, 2)).view()).unwrap();
         assert_eq!(m, Array2::<f64>::zeros((3, 2)));
+    }
+
+    /// Mismatched shapes are typed errors, not panics.
+    #[test]
+    fn mismatched_shapes_are_errors() {
+        let c = cholesky(array![[4.0, 2.0], [2.0, 3.0]].view()).unwrap();
+        let shape = |r: Result<_>| matches!(r, Err(Error::ShapeMismatch { .. }));
+        assert!(shape(c.solve(&[1.0]).map(|_| ())));
+        assert!(shape(c.solve(&[1.0, 2.0, 3.0]).map(|_| ())));
+        assert!(shape(c.solve_mat(Array2::zeros((3, 2)).view()).map(|_| ())));
+        assert!(shape(
+            matmul(Array2::zeros((2, 3)).view(), Array2::zeros((2, 3)).view()).map(|_| ())
+        ));
+        assert!(shape(sym_eigen(Array2::zeros((2, 3)).view()).map(|_| ())));
     }
 
     #[test]
@@ -806,29 +847,29 @@ mod tests {
         let a = random_matrix(&mut rng, 37, 23);
         let b = random_matrix(&mut rng, 23, 41);
         let expected = naive_matmul(&a, &b);
-        let c = matmul(a.view(), b.view());
+        let c = matmul(a.view(), b.view()).unwrap();
         assert!(c.is_standard_layout());
         assert!(max_abs_diff(&c, &expected) < 1e-13);
         // Column-major and transposed inputs.
         let mut af = Array2::zeros((37, 23).f());
         af.assign(&a);
         let bt = b.t().to_owned();
-        let c2 = matmul(af.view(), bt.t());
+        let c2 = matmul(af.view(), bt.t()).unwrap();
         assert!(c2.is_standard_layout());
         assert!(max_abs_diff(&c2, &expected) < 1e-13);
         // Strided views.
         let big = random_matrix(&mut rng, 74, 46);
         let sa = big.slice(s![..;2, ..;2]);
-        let c3 = matmul(sa, b.view());
+        let c3 = matmul(sa, b.view()).unwrap();
         assert!(max_abs_diff(&c3, &naive_matmul(&sa.to_owned(), &b)) < 1e-13);
         // Vector-shaped products.
         let x = random_matrix(&mut rng, 23, 1);
-        assert!(max_abs_diff(&matmul(a.view(), x.view()), &naive_matmul(&a, &x)) < 1e-13);
+        assert!(max_abs_diff(&matmul(a.view(), x.view()).unwrap(), &naive_matmul(&a, &x)) < 1e-13);
     }
 
     #[test]
     #[should_panic(expected = "inner dimensions")]
     fn matmul_shape_mismatch_panics() {
-        let _ = matmul(Array2::zeros((2, 3)).view(), Array2::zeros((2, 3)).view());
+        let _ = matmul(Array2::zeros((2, 3)).view(), Array2::zeros((2, 3)).view()).unwrap();
     }
 }

@@ -182,7 +182,7 @@ pub fn sample_covariance(x: ArrayView2<f64>, centre: bool) -> Result<Array2<f64>
             col.mapv_inplace(|v| v - mean);
         }
     }
-    let mut s = linalg::matmul(xc.t(), xc.view());
+    let mut s = linalg::gemm(xc.t(), xc.view());
     s.mapv_inplace(|v| v / n as f64);
     for i in 0..p {
         for j in 0..i {

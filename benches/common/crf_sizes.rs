@@ -25,7 +25,7 @@ pub fn problem(n: usize, p: usize, q: usize, seed: u64) -> CrfLoss {
             }
         }
     }
-    let mut y = ellone::linalg::matmul(x.view(), b.view());
+    let mut y = ellone::linalg::matmul(x.view(), b.view()).unwrap();
     for i in 0..n {
         let mut prev = 0.0;
         for j in 0..q {

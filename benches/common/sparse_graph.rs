@@ -36,7 +36,7 @@ pub fn sparse_graph_covariance(p: usize, seed: u64) -> Array2<f64> {
     let l = linalg::cholesky(sigma.view()).expect("SPD").lower();
     let n = p / 2 + 200;
     let z = Array2::from_shape_fn((n, p), |_| StandardNormal.sample(&mut rng));
-    let x = linalg::matmul(z.view(), l.t());
+    let x = linalg::matmul(z.view(), l.t()).unwrap();
     sample_covariance(x.view(), true).expect("finite data")
 }
 

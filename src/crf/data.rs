@@ -16,7 +16,7 @@
 
 use crate::error::{Error, Result};
 use crate::kernels::dot;
-use crate::linalg::matmul;
+use crate::linalg::gemm;
 use ndarray::{Array2, ArrayView2, Axis};
 
 /// Largest p for which [`InputMode::Auto`] forms S_xx (p² doubles: 32 MiB at 2048).
@@ -157,7 +157,7 @@ impl CrfData {
         apply_map(&mut xs, &x_map);
         apply_map(&mut ys, &y_map);
         let nf = n as f64;
-        let mut syy = matmul(ys.t(), ys.view());
+        let mut syy = gemm(ys.t(), ys.view());
         syy.mapv_inplace(|v| v / nf);
         // Exact symmetry (the GEMM may round the two triangles differently).
         for i in 0..q {
@@ -173,7 +173,7 @@ impl CrfData {
                 syy[[j, i]] = v;
             }
         }
-        let mut sxy = matmul(xs.t(), ys.view());
+        let mut sxy = gemm(xs.t(), ys.view());
         sxy.mapv_inplace(|v| v / nf);
         let sxy = sxy.into_raw_vec_and_offset().0;
         let sxx_diag: Vec<f64> = (0..p)
@@ -185,7 +185,7 @@ impl CrfData {
             InputMode::Auto => p <= GRAM_MAX_INPUTS,
         };
         let inputs = if use_gram {
-            let mut sxx = matmul(xs.t(), xs.view());
+            let mut sxx = gemm(xs.t(), xs.view());
             sxx.mapv_inplace(|v| v / nf);
             for i in 0..p {
                 sxx[[i, i]] = sxx_diag[i];
@@ -280,13 +280,13 @@ impl CrfData {
         let mut psi = match &self.inputs {
             Inputs::Gram(s) => {
                 let sa = s.select(Axis(0), rows).select(Axis(1), rows);
-                let sb = matmul(sa.view(), block);
-                matmul(block.t(), sb.view())
+                let sb = gemm(sa.view(), block);
+                gemm(block.t(), sb.view())
             }
             Inputs::Data(xt) => {
                 let xa = xt.select(Axis(0), rows);
-                let t = matmul(xa.t(), block);
-                let mut psi = matmul(t.t(), t.view());
+                let t = gemm(xa.t(), block);
+                let mut psi = gemm(t.t(), t.view());
                 let nf = self.n as f64;
                 psi.mapv_inplace(|v| v / nf);
                 psi
@@ -311,21 +311,21 @@ impl CrfData {
         match &self.inputs {
             Inputs::Gram(s) => {
                 let sa = s.select(Axis(1), rows);
-                let pm = matmul(sa.view(), block); // S_xx Θ, p×q
+                let pm = gemm(sa.view(), block); // S_xx Θ, p×q
                 let pa = pm.select(Axis(0), rows);
-                let mut psi = matmul(block.t(), pa.view());
+                let mut psi = gemm(block.t(), pa.view());
                 symmetrise(&mut psi);
-                (matmul(pm.view(), sigma), psi)
+                (gemm(pm.view(), sigma), psi)
             }
             Inputs::Data(xt) => {
                 let nf = self.n as f64;
                 let xa = xt.select(Axis(0), rows);
-                let t = matmul(xa.t(), block); // XΘ, n×q
-                let mut psi = matmul(t.t(), t.view());
+                let t = gemm(xa.t(), block); // XΘ, n×q
+                let mut psi = gemm(t.t(), t.view());
                 psi.mapv_inplace(|v| v / nf);
                 symmetrise(&mut psi);
-                let u = matmul(t.view(), sigma); // XΘΣ, n×q
-                let mut m = matmul(xt.view(), u.view());
+                let u = gemm(t.view(), sigma); // XΘΣ, n×q
+                let mut m = gemm(xt.view(), u.view());
                 m.mapv_inplace(|v| v / nf);
                 (m, psi)
             }
@@ -335,10 +335,10 @@ impl CrfData {
     /// S_xx·B for a dense p×q matrix B (used by the exact Hessian-vector product).
     pub(crate) fn sxx_times(&self, b: ArrayView2<f64>) -> Array2<f64> {
         match &self.inputs {
-            Inputs::Gram(s) => matmul(s.view(), b),
+            Inputs::Gram(s) => gemm(s.view(), b),
             Inputs::Data(xt) => {
-                let t = matmul(xt.t(), b);
-                let mut m = matmul(xt.view(), t.view());
+                let t = gemm(xt.t(), b);
+                let mut m = gemm(xt.view(), t.view());
                 let nf = self.n as f64;
                 m.mapv_inplace(|v| v / nf);
                 m

@@ -11,7 +11,7 @@ use super::data::{CrfData, InputMode};
 use super::loss::CrfLoss;
 use super::model::CrfModel;
 use crate::error::{check_lambda, Result};
-use crate::linalg::matmul;
+use crate::linalg::gemm;
 use crate::penalty::Penalty;
 use crate::solver::{NewtonCd, Observer, Owlqn, Solution, Solver, SolverOptions};
 use ndarray::{ArrayView2, Axis};
@@ -170,8 +170,8 @@ pub fn model_from_solution(loss: &CrfLoss, x: &[f64]) -> Result<CrfModel> {
     // b = m_y + ΣΘᵀm_x = m_y − μ₀(m_x) where μ₀ is the mean with b = 0.
     if xm.shift.iter().chain(&ym.shift).any(|v| *v != 0.0) {
         let mx = ndarray::Array1::from(xm.shift.clone()).insert_axis(Axis(0));
-        let t = matmul(mx.view(), model.interaction());
-        let st = matmul(t.view(), model.covariance());
+        let t = gemm(mx.view(), model.interaction());
+        let st = gemm(t.view(), model.covariance());
         let offset: Vec<f64> = ym.shift.iter().zip(st.row(0)).map(|(a, b)| a + b).collect();
         let mut m2 = CrfModel::from_parts(
             model.precision().to_owned(),

@@ -42,7 +42,7 @@ use super::gram_cache::GramBlock;
 use super::loss::{sandwich, CrfLoss};
 use crate::error::{Error, Result};
 use crate::kernels::dot;
-use crate::linalg::{cholesky, matmul};
+use crate::linalg::{cholesky, gemm};
 use crate::loss::{InnerLoopHints, LocalModel};
 use ndarray::Array2;
 
@@ -253,8 +253,8 @@ impl<'a> CrfLocal<'a> {
                 let gdd = Array2::from_shape_fn((drows.len(), drows.len()), |(u, v)| {
                     self.gram[drows[u] * cap + drows[v]]
                 });
-                let gd = matmul(gdd.view(), dd.view());
-                psi2 = matmul(dd.t(), gd.view());
+                let gd = gemm(gdd.view(), dd.view());
+                psi2 = gemm(dd.t(), gd.view());
                 if !trows.is_empty() {
                     let gdt = Array2::from_shape_fn((drows.len(), trows.len()), |(u, v)| {
                         self.gram[drows[u] * cap + trows[v]]
@@ -262,8 +262,8 @@ impl<'a> CrfLocal<'a> {
                     let tt = Array2::from_shape_fn((trows.len(), q), |(v, j)| {
                         self.theta_a[trows[v] * q + j]
                     });
-                    let pd = matmul(gdt.view(), tt.view()); // P[Drows, :]
-                    let a = matmul(pd.t(), dd.view());
+                    let pd = gemm(gdt.view(), tt.view()); // P[Drows, :]
+                    let a = gemm(pd.t(), dd.view());
                     psi1 = &a + &a.t();
                 }
             }
@@ -501,7 +501,7 @@ impl LocalModel for CrfLocal<'_> {
         let (log_det, tr) = if self.e_on {
             let lam_a = &self.lam + &(&self.e * alpha);
             let ch = cholesky(lam_a.view())?;
-            let sol = ch.solve_mat(psi_a.view());
+            let sol = ch.apply_inverse_mat(psi_a.view());
             (ch.log_det(), sol.diag().sum())
         } else {
             let tr: f64 = self

@@ -31,7 +31,7 @@ use super::data::{symmetrise, CrfData};
 use super::gram_cache::GramPool;
 use super::local::CrfLocal;
 use crate::error::{check_lambda, Error, Result};
-use crate::linalg::{cholesky, matmul};
+use crate::linalg::{cholesky, gemm};
 use crate::loss::{LocalModel, Loss};
 use ndarray::{Array2, ArrayView2};
 
@@ -279,8 +279,8 @@ impl CrfLoss {
 
 /// Φ = ΣΨΣ, exactly symmetric.
 pub(crate) fn sandwich(sigma: &Array2<f64>, psi: &Array2<f64>) -> Array2<f64> {
-    let t = matmul(sigma.view(), psi.view());
-    let mut phi = matmul(t.view(), sigma.view());
+    let t = gemm(sigma.view(), psi.view());
+    let mut phi = gemm(t.view(), sigma.view());
     symmetrise(&mut phi);
     phi
 }
@@ -326,12 +326,12 @@ impl Loss for CrfLoss {
         let e = self.lambda_matrix(v);
         let d = Array2::from_shape_vec((p, q), v[self.nl..].to_vec()).expect("shape");
         let s = st.sigma.view();
-        let es = matmul(e.view(), s);
-        let ses = matmul(s, es.view());
-        let sep = matmul(matmul(s, e.view()).view(), phi.view());
-        let pes = matmul(phi.view(), es.view());
-        let dtm = matmul(d.t(), m.view());
-        let sdtm = matmul(s, dtm.view());
+        let es = gemm(e.view(), s);
+        let ses = gemm(s, es.view());
+        let sep = gemm(gemm(s, e.view()).view(), phi.view());
+        let pes = gemm(phi.view(), es.view());
+        let dtm = gemm(d.t(), m.view());
+        let sdtm = gemm(s, dtm.view());
         let h_lam = &ses + &sep + &pes - &sdtm - sdtm.t();
         for (c, &(k, l)) in self.pairs.iter().enumerate() {
             let (k, l) = (k as usize, l as usize);
@@ -342,7 +342,7 @@ impl Loss for CrfLoss {
             };
         }
         let sd = self.data.sxx_times(d.view());
-        let h_theta = (matmul(sd.view(), s) - matmul(m.view(), es.view())) * 2.0;
+        let h_theta = (gemm(sd.view(), s) - gemm(m.view(), es.view())) * 2.0;
         out[self.nl..]
             .iter_mut()
             .zip(h_theta.iter())

@@ -17,7 +17,7 @@
 
 use super::scores;
 use crate::error::{check_finite, Error, Result};
-use crate::linalg::{cholesky, matmul};
+use crate::linalg::{cholesky, gemm};
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
 use rand::{rngs::StdRng, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
@@ -179,8 +179,8 @@ impl CrfModel {
     pub fn predict(&self, x: ArrayView2<f64>) -> Result<Array2<f64>> {
         self.check_inputs(&x)?;
         // X Θ Σ, then b − ·.
-        let xt = matmul(x, self.interaction.view());
-        let mut mu = matmul(xt.view(), self.covariance.view());
+        let xt = gemm(x, self.interaction.view());
+        let mut mu = gemm(xt.view(), self.covariance.view());
         for mut row in mu.rows_mut() {
             row.iter_mut()
                 .zip(&self.offset)
@@ -210,7 +210,7 @@ impl CrfModel {
         let mut rng = StdRng::seed_from_u64(seed);
         let z = Array2::from_shape_fn((scenarios, q), |_| StandardNormal.sample(&mut rng));
         // Rows y = μ + L z ⇒ Y = 1μᵀ + Z Lᵀ.
-        let mut y = matmul(z.view(), l.t());
+        let mut y = gemm(z.view(), l.t());
         for mut row in y.rows_mut() {
             row += &mu.row(0);
         }
@@ -250,7 +250,7 @@ impl CrfModel {
         self.check_outputs(&x, &y)?;
         let mu = self.predict(x)?;
         let r = &y - &mu;
-        let rl = matmul(r.view(), self.precision.view());
+        let rl = gemm(r.view(), self.precision.view());
         let quad: f64 = (&rl * &r).sum();
         let log_det = cholesky(self.precision.view())
             .ok_or_else(|| Error::NotPositiveDefinite("precision".into()))?

@@ -520,7 +520,7 @@ impl Loss for LogDet {
         let (Some(wv), Some(vv)) = (square_view(p, &w), square_view(p, &vm)) else {
             return;
         };
-        let wvw = linalg::matmul(linalg::matmul(wv, vv).view(), wv);
+        let wvw = linalg::gemm(linalg::gemm(wv, vv).view(), wv);
         for (k, &(i, j)) in self.pairs.iter().enumerate() {
             let (i, j) = (i as usize, j as usize);
             let c = if i == j { 1.0 } else { 2.0 };

@@ -187,7 +187,7 @@ use super::district_heating::{generate, HeatingConfig, HeatingData};
 use crate::crf::scores::{energy_score, gaussian_crps};
 use crate::crf::{model_from_solution, Alternating, CrfData, CrfLoss, CrfModel, InputMode};
 use crate::error::{Error, Result};
-use crate::linalg::{cholesky, matmul};
+use crate::linalg::{cholesky, gemm};
 use crate::loss::{LeastSquares, Loss};
 use crate::path::{fit_path, PathOptions};
 use crate::penalty::{Penalty, ResolvedPenalty};
@@ -645,11 +645,11 @@ fn reduced_design(train: &Part) -> Option<ReducedDesign> {
     if n <= pt {
         return None;
     }
-    let ch = cholesky(matmul(xt.t(), xt.view()).view())?;
+    let ch = cholesky(gemm(xt.t(), xt.view()).view())?;
     let c = (pt as f64 / n as f64).sqrt();
     let z = ch.lower().t().mapv(|v| v * c);
-    let b = ch.solve_mat(matmul(xt.t(), train.y.view()).view());
-    let u = matmul(z.view(), b.view());
+    let b = ch.apply_inverse_mat(gemm(xt.t(), train.y.view()).view());
+    let u = gemm(z.view(), b.view());
     (z.iter().chain(u.iter()).all(|v| v.is_finite())).then_some(ReducedDesign { z, u })
 }
 
@@ -763,7 +763,7 @@ fn with_ones(x: &Array2<f64>) -> Array2<f64> {
 /// The Gaussian model N(Bᵀx + b, Σ) as a CRF on the same inputs: Λ = Σ⁻¹, Θ = −BΛ, offset
 /// b (then the CRF mean b − ΣΘᵀx = b + Bᵀx). `precision` is Σ⁻¹.
 fn gaussian_as_crf(b: &Array2<f64>, offset: Vec<f64>, precision: Array2<f64>) -> Result<CrfModel> {
-    let theta = -matmul(b.view(), precision.view());
+    let theta = -gemm(b.view(), precision.view());
     CrfModel::from_parts(precision, theta, offset)
 }
 
@@ -776,7 +776,7 @@ fn fit_ols(train: &Part) -> Result<(CrfModel, OlsSummary)> {
             "least squares needs more training days ({n}) than inputs ({p})"
         )));
     }
-    let mut xtx = matmul(xt.t(), xt.view());
+    let mut xtx = gemm(xt.t(), xt.view());
     let mut ridge = 0.0;
     let chol = match cholesky(xtx.view()) {
         Some(c) => c,
@@ -789,10 +789,10 @@ fn fit_ols(train: &Part) -> Result<(CrfModel, OlsSummary)> {
                 .ok_or_else(|| Error::NotPositiveDefinite("XᵀX of the least-squares fit".into()))?
         }
     };
-    let xty = matmul(xt.t(), train.y.view());
-    let b = chol.solve_mat(xty.view());
-    let r = &train.y - &matmul(xt.view(), b.view());
-    let mut sigma = matmul(r.t(), r.view());
+    let xty = gemm(xt.t(), train.y.view());
+    let b = chol.apply_inverse_mat(xty.view());
+    let r = &train.y - &gemm(xt.view(), b.view());
+    let mut sigma = gemm(r.t(), r.view());
     sigma.mapv_inplace(|v| v / (n - p) as f64);
     symmetrise(&mut sigma);
     let q = sigma.nrows();
@@ -890,7 +890,7 @@ impl CrfProblem {
                 resid[[i, k]] = (t - f.b0 - a) / y_scale[k];
             }
         }
-        let mut residual_cov = matmul(resid.t(), resid.view());
+        let mut residual_cov = gemm(resid.t(), resid.view());
         residual_cov.mapv_inplace(|v| v / n as f64);
         symmetrise(&mut residual_cov);
         Ok(Self {
@@ -912,7 +912,7 @@ impl CrfProblem {
             &PrecisionOptions::default(),
         )?;
         let lam0 = fit.precision;
-        let theta0 = -matmul(self.b_scaled.view(), lam0.view());
+        let theta0 = -gemm(self.b_scaled.view(), lam0.view());
         let x = self.loss.pack(lam0.view(), theta0.view())?;
         let mut penalty = Penalty::l1(lambda)?;
         if let Some(gamma) = adaptive {
@@ -1277,7 +1277,7 @@ pub fn run_with(config: &PipelineConfig, progress: &mut dyn Progress) -> Result<
 
     // The swaps: N(lasso mean, CRF Σ) and N(CRF mean, lasso diagonal). The CRF mean is
     // offset − ΣΘᵀx = offset + Bᵀx with B = −ΘΣ.
-    let crf_b = -matmul(crf.model.interaction(), crf.model.covariance());
+    let crf_b = -gemm(crf.model.interaction(), crf.model.covariance());
     let swap_models = [
         (
             SWAP_CRF_COVARIANCE,

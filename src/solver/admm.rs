@@ -155,9 +155,9 @@ impl GramSolver {
         let aty = a.t().dot(&ArrayView1::from(y)) / nf;
         let primal = m <= n;
         let gram = if primal {
-            crate::linalg::matmul(a.t(), a.view()) / nf
+            crate::linalg::gemm(a.t(), a.view()) / nf
         } else {
-            crate::linalg::matmul(a.view(), a.t()) / nf
+            crate::linalg::gemm(a.view(), a.t()) / nf
         };
         let (vals, vecs) = crate::linalg::sym_eigen(gram.view())?;
         let vals = vals.into_iter().map(|v| v.max(0.0)).collect();
@@ -227,7 +227,7 @@ impl PrecisionSolver {
         for (mut col, &t) in qd.axis_iter_mut(Axis(1)).zip(&theta) {
             col *= t;
         }
-        let full = crate::linalg::matmul(qd.view(), q.t());
+        let full = crate::linalg::gemm(qd.view(), q.t());
         debug_assert_eq!(full.nrows(), p);
         for (&(i, j), xk) in self.pairs.iter().zip(x.iter_mut()) {
             *xk = 0.5 * (full[[i, j]] + full[[j, i]]);

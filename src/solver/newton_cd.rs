@@ -578,7 +578,7 @@ fn subspace_newton(
                 }
             }
             if let Some(ch) = crate::linalg::cholesky(hm.view()) {
-                let d = ch.solve(&rhs);
+                let d = ch.apply_inverse(&rhs);
                 if d.iter().all(|v| v.is_finite()) {
                     newton = Some(d);
                     break;
