@@ -31,8 +31,12 @@ pub trait CrossValidate: Loss {
     /// Typed errors if the subset is invalid (e.g. empty).
     fn subset(&self, rows: &[usize]) -> Result<Box<dyn CrossValidate>>;
     /// Held-out scores of coordinates `x` on rows `rows`: the primary score (lower is
-    /// better) first, then any secondary scores.
-    fn held_out(&self, rows: &[usize], x: &[f64]) -> Vec<f64>;
+    /// better) first, then any secondary scores (NaN where a score is undefined at `x`).
+    ///
+    /// # Errors
+    /// [`Error::Empty`] for no rows, [`Error::InvalidArgument`] for a row index out of
+    /// range, [`Error::ShapeMismatch`] for coordinates of the wrong length.
+    fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>>;
     /// Names of the scores returned by [`CrossValidate::held_out`].
     fn score_names(&self) -> Vec<&'static str>;
 }
@@ -45,23 +49,26 @@ impl CrossValidate for LeastSquares {
         self.design().ncols()
     }
     fn subset(&self, rows: &[usize]) -> Result<Box<dyn CrossValidate>> {
+        check_rows(rows, self.n_samples())?;
         let y = rows.iter().map(|&i| self.response()[i]).collect();
         Ok(Box::new(LeastSquares::new(
-            self.design().select_rows(rows),
+            self.design().select_rows(rows)?,
             y,
             self.has_intercept(),
         )?))
     }
     /// Mean squared prediction error.
-    fn held_out(&self, rows: &[usize], x: &[f64]) -> Vec<f64> {
+    fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>> {
+        check_rows(rows, self.n_samples())?;
+        check_coordinates(x, self.dim())?;
         let eta = predictor(self.design(), self.split(x), rows);
         let mse = rows
             .iter()
             .zip(&eta)
             .map(|(&i, e)| (self.response()[i] - e).powi(2))
             .sum::<f64>()
-            / rows.len().max(1) as f64;
-        vec![mse]
+            / rows.len() as f64;
+        Ok(vec![mse])
     }
     fn score_names(&self) -> Vec<&'static str> {
         vec!["mean_squared_error"]
@@ -76,17 +83,20 @@ impl CrossValidate for Logistic {
         self.design().ncols()
     }
     fn subset(&self, rows: &[usize]) -> Result<Box<dyn CrossValidate>> {
+        check_rows(rows, self.n_samples())?;
         let y = rows.iter().map(|&i| self.labels()[i]).collect();
         Ok(Box::new(Logistic::new(
-            self.design().select_rows(rows),
+            self.design().select_rows(rows)?,
             y,
             self.has_intercept(),
         )?))
     }
     /// Mean deviance 2·Σ[softplus(η) − yη]/m, then the misclassification rate.
-    fn held_out(&self, rows: &[usize], x: &[f64]) -> Vec<f64> {
+    fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>> {
+        check_rows(rows, self.n_samples())?;
+        check_coordinates(x, self.dim())?;
         let eta = predictor(self.design(), self.split(x), rows);
-        let m = rows.len().max(1) as f64;
+        let m = rows.len() as f64;
         let (mut dev, mut wrong) = (0.0, 0.0);
         for (&i, &e) in rows.iter().zip(&eta) {
             let y = self.labels()[i];
@@ -95,11 +105,39 @@ impl CrossValidate for Logistic {
                 wrong += 1.0;
             }
         }
-        vec![dev / m, wrong / m]
+        Ok(vec![dev / m, wrong / m])
     }
     fn score_names(&self) -> Vec<&'static str> {
         vec!["deviance", "misclassification"]
     }
+}
+
+/// Checks a row subset of n rows: non-empty, every index below n.
+///
+/// # Errors
+/// [`Error::Empty`] for no rows, [`Error::InvalidArgument`] for an index ≥ n.
+pub(crate) fn check_rows(rows: &[usize], n: usize) -> Result<()> {
+    if rows.is_empty() {
+        return Err(Error::Empty("row subset".into()));
+    }
+    match rows.iter().find(|&&i| i >= n) {
+        Some(&i) => Err(Error::InvalidArgument(format!(
+            "row index {i} is out of range 0..{n}"
+        ))),
+        None => Ok(()),
+    }
+}
+
+/// Checks that a coordinate vector has the problem's dimension.
+pub(crate) fn check_coordinates(x: &[f64], dim: usize) -> Result<()> {
+    if x.len() == dim {
+        return Ok(());
+    }
+    Err(Error::ShapeMismatch {
+        what: "coordinates".into(),
+        expected: format!("{dim} entries"),
+        found: format!("{} entries", x.len()),
+    })
 }
 
 /// η_i = x_iᵀb + b₀ for the given rows.
@@ -224,11 +262,10 @@ pub fn cross_validate(
             &path_opts,
         )?;
         // per λ: the scores
-        Ok(path
-            .points
+        path.points
             .iter()
             .map(|p| loss.held_out(&test, &p.x.to_dense()))
-            .collect())
+            .collect::<Result<Vec<_>>>()
     };
     let per_fold: Vec<Vec<Vec<f64>>> = if opts.parallel {
         (0..k)

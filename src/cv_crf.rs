@@ -109,9 +109,7 @@ impl CrfProblem {
     }
 
     fn subset_problem(&self, rows: &[usize]) -> Result<Self> {
-        if rows.iter().any(|&i| i >= self.x.nrows()) {
-            return Err(Error::InvalidArgument("row index out of range".into()));
-        }
+        crate::cv::check_rows(rows, self.x.nrows())?;
         let x = self.x.select(Axis(0), rows);
         let y = self.y.select(Axis(0), rows);
         Self::new(
@@ -163,8 +161,9 @@ impl CrossValidate for CrfProblem {
         Ok(Box::new(self.subset_problem(rows)?))
     }
     /// The mean held-out conditional negative log-likelihood; NaN where it is undefined.
-    fn held_out(&self, rows: &[usize], x: &[f64]) -> Vec<f64> {
-        vec![self.held_out_nll(rows, x).unwrap_or(f64::NAN)]
+    fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>> {
+        crate::cv::check_rows(rows, self.x.nrows())?;
+        Ok(vec![self.held_out_nll(rows, x).unwrap_or(f64::NAN)])
     }
     fn score_names(&self) -> Vec<&'static str> {
         vec!["negative_log_likelihood"]

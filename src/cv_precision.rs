@@ -167,9 +167,7 @@ impl CrossValidate for PrecisionProblem {
         let data = self.data.as_ref().ok_or_else(|| {
             Error::InvalidArgument("the problem was built from a covariance: no samples".into())
         })?;
-        if rows.iter().any(|&i| i >= data.nrows()) {
-            return Err(Error::InvalidArgument("row index out of range".into()));
-        }
+        crate::cv::check_rows(rows, data.nrows())?;
         let sub = data.select(ndarray::Axis(0), rows);
         Ok(Box::new(PrecisionProblem::from_samples(
             sub.view(),
@@ -179,8 +177,10 @@ impl CrossValidate for PrecisionProblem {
     }
     /// The mean held-out negative log-likelihood ([`PrecisionProblem::held_out_nll`]); NaN
     /// where it is undefined.
-    fn held_out(&self, rows: &[usize], x: &[f64]) -> Vec<f64> {
-        vec![self.held_out_nll(rows, x).unwrap_or(f64::NAN)]
+    fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>> {
+        crate::cv::check_rows(rows, self.n_samples())?;
+        crate::cv::check_coordinates(x, self.loss.dim())?;
+        Ok(vec![self.held_out_nll(rows, x).unwrap_or(f64::NAN)])
     }
     fn score_names(&self) -> Vec<&'static str> {
         vec!["negative_log_likelihood"]

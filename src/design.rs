@@ -306,8 +306,13 @@ impl Design {
             .for_each(|(j, o)| *o = self.col_dot(j, v));
     }
 
-    /// The rows `rows` of X (in that order) as a new design; all-zero columns are allowed.
-    pub fn select_rows(&self, rows: &[usize]) -> Design {
+    /// The rows `rows` of X (in that order, repeats allowed) as a new design; all-zero
+    /// columns are allowed.
+    ///
+    /// # Errors
+    /// [`Error::Empty`] for no rows, [`Error::InvalidArgument`] for a row index ≥ n.
+    pub fn select_rows(&self, rows: &[usize]) -> Result<Design> {
+        crate::cv::check_rows(rows, self.n)?;
         let m = rows.len();
         match &self.storage {
             Storage::Dense(d) => {
@@ -316,11 +321,11 @@ impl Design {
                     let col = &d[j * self.n..(j + 1) * self.n];
                     data.extend(rows.iter().map(|&i| col[i]));
                 }
-                Design {
+                Ok(Design {
                     n: m,
                     p: self.p,
                     storage: Storage::Dense(data),
-                }
+                })
             }
             Storage::Sparse(s) => {
                 // Map old row index → list of new positions (rows may repeat).
@@ -341,11 +346,11 @@ impl Design {
                         }
                     }
                 }
-                Design {
+                Ok(Design {
                     n: m,
                     p: self.p,
                     storage: Storage::Sparse(Csc::from_csc(tri.to_csc())),
-                }
+                })
             }
         }
     }
@@ -398,9 +403,13 @@ mod tests {
         assert_eq!(o1, o2);
         let rows = [3, 0, 0];
         assert_eq!(
-            dense.select_rows(&rows).to_dense(),
-            sparse.select_rows(&rows).to_dense()
+            dense.select_rows(&rows).unwrap().to_dense(),
+            sparse.select_rows(&rows).unwrap().to_dense()
         );
+        for d in [&dense, &sparse] {
+            assert!(matches!(d.select_rows(&[]), Err(Error::Empty(_))));
+            assert!(matches!(d.select_rows(&[0, 4]), Err(Error::InvalidArgument(_))));
+        }
     }
 
     #[test]

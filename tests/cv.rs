@@ -105,6 +105,43 @@ fn bad_fold_counts_are_errors() {
     }
 }
 
+/// Row subsets and held-out scores check their rows and coordinates (typed errors, no
+/// panic), for both linear losses.
+#[test]
+fn bad_rows_and_coordinates_are_errors() {
+    use ellone::cv::CrossValidate;
+    use ellone::Error;
+    let (x, y, _) = sparse_truth(10, 25, 1);
+    let labels: Vec<f64> = y.iter().map(|&v| f64::from(v > 0.0)).collect();
+    let ls = LeastSquares::from_dense(x.view(), &y, true).unwrap();
+    let lg = Logistic::from_dense(x.view(), &labels, false).unwrap();
+    for (problem, dim) in [(&ls as &dyn CrossValidate, 26), (&lg, 25)] {
+        let coords = vec![0.0; dim];
+        assert!(matches!(problem.subset(&[]), Err(Error::Empty(_))));
+        assert!(matches!(
+            problem.subset(&[0, 10]),
+            Err(Error::InvalidArgument(_))
+        ));
+        assert!(matches!(
+            problem.held_out(&[], &coords),
+            Err(Error::Empty(_))
+        ));
+        assert!(matches!(
+            problem.held_out(&[3, 99], &coords),
+            Err(Error::InvalidArgument(_))
+        ));
+        assert!(matches!(
+            problem.held_out(&[0, 1], &coords[1..]),
+            Err(Error::ShapeMismatch { .. })
+        ));
+        assert!(problem.subset(&[0, 2, 4, 6]).is_ok());
+        assert_eq!(
+            problem.held_out(&[0, 1], &coords).unwrap().len(),
+            problem.score_names().len()
+        );
+    }
+}
+
 /// Synthetic ℓ1-logistic data with a known sparse truth (demo data generated in the test):
 /// standard normal features, intercept −0.5, five coefficients ±2.
 fn sparse_logistic(n: usize, p: usize, seed: u64) -> (Array2<f64>, Vec<f64>, Vec<usize>) {
@@ -221,7 +258,7 @@ fn precision_held_out_score_is_the_gaussian_likelihood() {
         direct -= logpdf;
     }
     direct /= rows.len() as f64;
-    let score = problem.held_out(&rows, &coords);
+    let score = problem.held_out(&rows, &coords).unwrap();
     assert!(
         (score[0] - direct).abs() < 1e-12 * direct.abs(),
         "{score:?} vs {direct}"
@@ -321,7 +358,7 @@ fn crf_held_out_score_is_the_gaussian_likelihood() {
             0.5 * ((2.0 * std::f64::consts::PI * sigma2).ln() + (y[[r, 0]] - mu).powi(2) / sigma2);
     }
     direct /= rows.len() as f64;
-    let score = problem.held_out(&rows, &coords);
+    let score = problem.held_out(&rows, &coords).unwrap();
     assert!(
         (score[0] - direct).abs() < 1e-12 * direct.abs(),
         "{score:?} vs {direct}"

@@ -21,6 +21,14 @@ pub(crate) struct LinearData {
 
 impl LinearData {
     pub(crate) fn new(x: Design, y: Vec<f64>, intercept: bool) -> Result<Self> {
+        if x.nrows() == 0 || x.ncols() == 0 {
+            // The design constructors reject this; checked again for safety of the divisions by n.
+            return Err(Error::Empty(format!(
+                "design matrix ({}×{})",
+                x.nrows(),
+                x.ncols()
+            )));
+        }
         if y.len() != x.nrows() {
             return Err(Error::ShapeMismatch {
                 what: "rows of x vs length of y".into(),
