@@ -408,7 +408,10 @@ mod tests {
         );
         for d in [&dense, &sparse] {
             assert!(matches!(d.select_rows(&[]), Err(Error::Empty(_))));
-            assert!(matches!(d.select_rows(&[0, 4]), Err(Error::InvalidArgument(_))));
+            assert!(matches!(
+                d.select_rows(&[0, 4]),
+                Err(Error::InvalidArgument(_))
+            ));
         }
     }
 

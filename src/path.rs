@@ -202,14 +202,27 @@ fn null_solution(loss: &dyn Loss, penalty: &Penalty) -> Result<(f64, Vec<f64>, V
     Ok((lmax, x, g))
 }
 
+/// The longest λ grid [`log_grid`] builds (far beyond any useful path; a guard against a
+/// count that would exhaust memory).
+pub const MAX_GRID: usize = 100_000;
+
 /// A log-spaced grid of `n` values from `lambda_max` down to `ratio·lambda_max`.
 ///
 /// # Errors
-/// [`Error::InvalidArgument`] for n = 0 or a ratio outside (0, 1].
+/// [`Error::InvalidArgument`] for n = 0 or n > [`MAX_GRID`], a ratio outside (0, 1], or a
+/// λ_max that is not finite and positive (λ_max = 0 means the zero vector already solves
+/// the problem for every λ, e.g. a response that is identically zero), or one so small
+/// that ratio·λ_max underflows to 0.
 pub fn log_grid(lambda_max: f64, ratio: f64, n: usize) -> Result<Vec<f64>> {
-    if n == 0 || !(ratio > 0.0 && ratio <= 1.0) || !(lambda_max.is_finite()) {
+    if n == 0 || n > MAX_GRID || !(ratio > 0.0 && ratio <= 1.0) {
         return Err(Error::InvalidArgument(format!(
-            "grid needs n ≥ 1, 0 < ratio ≤ 1 and finite λ_max (got n={n}, ratio={ratio}, λ_max={lambda_max})"
+            "grid needs 1 ≤ n ≤ {MAX_GRID} and 0 < ratio ≤ 1 (got n={n}, ratio={ratio})"
+        )));
+    }
+    if !(lambda_max.is_finite() && ratio * lambda_max > 0.0) {
+        return Err(Error::InvalidArgument(format!(
+            "grid needs a finite λ_max > 0 with ratio·λ_max > 0 (got λ_max={lambda_max}, \
+             ratio={ratio}); λ_max = 0 means the zero vector is optimal for every λ"
         )));
     }
     if n == 1 {
@@ -353,4 +366,39 @@ pub fn fit_path(
         seconds: started.elapsed().as_secs_f64(),
         dim: m,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A geometric sequence from λ_max to ratio·λ_max (constant ratio between neighbours),
+    /// and typed errors for grids that cannot be built.
+    #[test]
+    fn log_grid_is_geometric_and_checks_its_inputs() {
+        let g = log_grid(2.0, 1e-3, 4).unwrap();
+        assert_eq!(g.len(), 4);
+        assert!((g[0] - 2.0).abs() < 1e-15 && (g[3] - 2e-3).abs() < 1e-15);
+        for w in g.windows(2) {
+            assert!((w[1] / w[0] - 0.1).abs() < 1e-12);
+        }
+        assert_eq!(log_grid(0.7, 0.5, 1).unwrap(), vec![0.7]);
+        for (lmax, ratio, n) in [
+            (1.0, 0.5, 0),
+            (1.0, 0.5, MAX_GRID + 1),
+            (1.0, 0.5, usize::MAX),
+            (1.0, 0.0, 3),
+            (1.0, 1.5, 3),
+            (0.0, 0.5, 3),
+            (-1.0, 0.5, 3),
+            (f64::NAN, 0.5, 3),
+            (f64::INFINITY, 0.5, 3),
+            (1e-320, 1e-10, 3),
+        ] {
+            assert!(
+                matches!(log_grid(lmax, ratio, n), Err(Error::InvalidArgument(_))),
+                "{lmax} {ratio} {n}"
+            );
+        }
+    }
 }

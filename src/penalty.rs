@@ -44,10 +44,31 @@ pub fn coordinate_residual(x: f64, g: f64, lambda: f64) -> f64 {
 
 /// A weighted ℓ1 penalty, optionally with an ℓ2 term (elastic net).
 #[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(try_from = "PenaltyFields")]
 pub struct Penalty {
     lambda: f64,
     weights: Option<Vec<f64>>,
     l2: f64,
+}
+
+/// The serialised fields of a [`Penalty`], validated by the same checks as the builders
+/// when deserialised (a penalty read from a file cannot carry a negative λ or weight).
+#[derive(serde::Deserialize)]
+struct PenaltyFields {
+    lambda: f64,
+    weights: Option<Vec<f64>>,
+    l2: f64,
+}
+
+impl TryFrom<PenaltyFields> for Penalty {
+    type Error = Error;
+    fn try_from(f: PenaltyFields) -> Result<Self> {
+        let p = Penalty::l1(f.lambda)?.with_l2(f.l2)?;
+        match f.weights {
+            Some(w) => p.with_weights(w),
+            None => Ok(p),
+        }
+    }
 }
 
 impl Penalty {
@@ -154,14 +175,18 @@ impl ResolvedPenalty {
     /// Resolves `penalty` with the loss's structural factors `factor(k)`.
     ///
     /// # Errors
-    /// [`Error::ShapeMismatch`] if the weights do not match `dim`.
+    /// [`Error::ShapeMismatch`] if the weights do not match `dim`; [`Error::InvalidLambda`]
+    /// if a coordinate's λ_k = λ·w_k·c_k is not a finite non-negative number (a negative or
+    /// NaN structural factor, or a product that overflows).
     pub fn new(penalty: &Penalty, dim: usize, factor: impl Fn(usize) -> f64) -> Result<Self> {
         penalty.check_dim(dim)?;
         let mut l1 = Vec::with_capacity(dim);
         let mut l2 = Vec::with_capacity(dim);
         for k in 0..dim {
             let c = factor(k);
-            l1.push(penalty.lambda * penalty.weight(k) * c);
+            let lambda_k = penalty.lambda * penalty.weight(k) * c;
+            check_lambda(&format!("λ·weight·factor of coordinate {k}"), lambda_k)?;
+            l1.push(lambda_k);
             l2.push(if c > 0.0 { penalty.l2 } else { 0.0 });
         }
         Ok(Self { l1, l2 })
@@ -242,6 +267,27 @@ mod tests {
         assert!(p.clone().with_weights(vec![1.0, -2.0]).is_err());
         let p = p.with_weights(vec![1.0, 2.0]).unwrap();
         assert!(matches!(p.check_dim(3), Err(Error::ShapeMismatch { .. })));
+        // λ·w overflowing to ∞, and a negative structural factor.
+        let huge = Penalty::l1(1e300)
+            .unwrap()
+            .with_weights(vec![1e300, 1.0])
+            .unwrap();
+        assert!(matches!(
+            ResolvedPenalty::new(&huge, 2, |_| 1.0),
+            Err(Error::InvalidLambda { .. })
+        ));
+        assert!(ResolvedPenalty::new(&p, 2, |k| if k == 1 { -1.0 } else { 1.0 }).is_err());
+        // Deserialising runs the builders' checks.
+        let ok: Penalty =
+            serde_json::from_str(r#"{"lambda":0.5,"weights":[1.0,0.0],"l2":0.1}"#).unwrap();
+        assert_eq!(ok.weights(), Some(&[1.0, 0.0][..]));
+        for bad in [
+            r#"{"lambda":-1.0,"weights":null,"l2":0.0}"#,
+            r#"{"lambda":1.0,"weights":null,"l2":-10.0}"#,
+            r#"{"lambda":1.0,"weights":[1.0,-2.0],"l2":0.0}"#,
+        ] {
+            assert!(serde_json::from_str::<Penalty>(bad).is_err(), "{bad}");
+        }
     }
 
     #[test]

@@ -588,6 +588,13 @@ fn bad_input_is_a_typed_error() {
         Err(Error::ShapeMismatch { .. })
     ));
     assert!(fitted.model.sample(x.row(0), 0, 1).is_err());
+    // Counts that could not be allocated are refused, not attempted.
+    for huge in [usize::MAX, usize::MAX / 2, 1 << 40] {
+        assert!(matches!(
+            fitted.model.sample(x.row(0), huge, 1),
+            Err(Error::InvalidArgument(_))
+        ));
+    }
     let mut alt = CrfOptions::new(0.1, 0.1);
     alt.method = CrfMethod::Alternating;
     alt.solver.tol = -1.0;

@@ -55,6 +55,10 @@ fn shape_error(what: &str, expected: String, found: String) -> Error {
     }
 }
 
+/// The most values (scenarios × outputs) one call of [`CrfModel::sample`] draws: 2³⁰
+/// doubles, 8 GiB. A guard against a count that could not be allocated.
+pub const MAX_SCENARIO_VALUES: usize = 1 << 30;
+
 impl CrfModel {
     /// A model from Λ (q×q, symmetric positive definite), Θ (p×q) and the mean offset b (q).
     ///
@@ -194,12 +198,15 @@ impl CrfModel {
     ///
     /// # Errors
     /// [`Error::ShapeMismatch`], [`Error::NonFinite`], [`Error::InvalidArgument`] for zero
-    /// scenarios.
+    /// scenarios or more than [`MAX_SCENARIO_VALUES`] values in all (scenarios × q).
     pub fn sample(&self, x: ArrayView1<f64>, scenarios: usize, seed: u64) -> Result<Array2<f64>> {
-        if scenarios == 0 {
-            return Err(Error::InvalidArgument(
-                "the number of scenarios must be at least 1".into(),
-            ));
+        let values = scenarios.checked_mul(self.outputs());
+        if scenarios == 0 || values.is_none_or(|v| v > MAX_SCENARIO_VALUES) {
+            return Err(Error::InvalidArgument(format!(
+                "the number of scenarios must be at least 1 and scenarios × outputs at most \
+                 {MAX_SCENARIO_VALUES} (got {scenarios} × {})",
+                self.outputs()
+            )));
         }
         let xr = x.to_owned().insert_axis(ndarray::Axis(0));
         let mu = self.predict(xr.view())?;
