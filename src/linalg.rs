@@ -152,8 +152,8 @@ impl Cholesky {
 /// Only one triangle of A is read; the caller guarantees symmetry.
 ///
 /// # Errors
-/// [`Error::ShapeMismatch`] if A is not square, [`Error::NonFinite`] if an entry of the
-/// triangle read is NaN or ±Inf, [`Error::Numerical`] if the backend's iteration fails to
+/// [`Error::ShapeMismatch`] if A is not square, [`Error::NonFinite`] if an entry is NaN
+/// or ±Inf, [`Error::Numerical`] if the backend's iteration fails to
 /// converge.
 pub fn sym_eigen(a: ArrayView2<f64>) -> Result<(Vec<f64>, Array2<f64>)> {
     if a.nrows() != a.ncols() {
@@ -164,8 +164,10 @@ pub fn sym_eigen(a: ArrayView2<f64>) -> Result<(Vec<f64>, Array2<f64>)> {
         });
     }
     let n = a.nrows();
+    // Every entry, not one triangle: which triangle the backend reads depends on the
+    // layout of the input.
     for i in 0..n {
-        for j in 0..=i {
+        for j in 0..n {
             if !a[[i, j]].is_finite() {
                 return Err(Error::NonFinite {
                     what: "sym_eigen input".to_string(),
@@ -785,7 +787,7 @@ mod tests {
         assert_eq!(m, Array2::<f64>::zeros((3, 2)));
     }
 
-    /// Mismatched shapes are typed errors, not panics.
+    /// Mismatched shapes and non-finite entries are typed errors, not panics.
     #[test]
     fn mismatched_shapes_are_errors() {
         let c = cholesky(array![[4.0, 2.0], [2.0, 3.0]].view()).unwrap();
@@ -797,6 +799,13 @@ mod tests {
             matmul(Array2::zeros((2, 3)).view(), Array2::zeros((2, 3)).view()).map(|_| ())
         ));
         assert!(shape(sym_eigen(Array2::zeros((2, 3)).view()).map(|_| ())));
+        // A NaN in either triangle, whatever the layout, is refused.
+        for (i, j) in [(0, 1), (1, 0)] {
+            let mut a = array![[2.0, 0.5], [0.5, 1.0]];
+            a[[i, j]] = f64::NAN;
+            assert!(matches!(sym_eigen(a.view()), Err(Error::NonFinite { .. })));
+            assert!(matches!(sym_eigen(a.t()), Err(Error::NonFinite { .. })));
+        }
     }
 
     #[test]

@@ -212,7 +212,7 @@ pub fn check_semidefinite(s: ArrayView2<f64>) -> Result<()> {
 }
 
 /// [`check_semidefinite`] on a covariance that [`validate_covariance`] has already checked.
-fn semidefinite(s: &Array2<f64>) -> Result<()> {
+pub(crate) fn semidefinite(s: &Array2<f64>) -> Result<()> {
     let p = s.nrows();
     let top = (0..p).map(|i| s[[i, i]]).fold(0.0f64, f64::max);
     let shift = SEMIDEFINITE_SHIFT * top.max(f64::MIN_POSITIVE);

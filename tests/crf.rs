@@ -541,6 +541,20 @@ fn model_json_round_trip() {
     // A non-positive-definite precision is refused on load.
     let bad = text.replacen("\"data\":[", "\"data\":[-", 1);
     assert!(CrfModel::from_json(&bad).is_err());
+    // A negative penalty level is refused on load.
+    let value: serde_json::Value = serde_json::from_str(&text).unwrap();
+    let mut negative = value.clone();
+    negative["lambda_precision"] = serde_json::json!(-1.0);
+    assert!(matches!(
+        CrfModel::from_json(&negative.to_string()),
+        Err(Error::InvalidLambda { .. })
+    ));
+    // A numerically singular Λ (its inverse overflows) is refused.
+    let tiny = Array2::<f64>::eye(2) * 1e-320;
+    assert!(matches!(
+        CrfModel::from_parts(tiny, Array2::zeros((1, 2)), vec![0.0; 2]),
+        Err(Error::NonFinite { .. })
+    ));
 }
 
 #[test]

@@ -122,6 +122,15 @@ impl CrfModel {
         let ch = cholesky(precision.view())
             .ok_or_else(|| Error::NotPositiveDefinite("precision".into()))?;
         let covariance = ch.inverse();
+        // A factor that exists but is numerically singular (e.g. Λ = 10⁻³²⁰·I) gives an
+        // infinite covariance: every prediction would be meaningless.
+        check_finite("covariance Λ⁻¹", covariance.iter(), |i| {
+            format!(
+                "row {}, column {} (Λ is numerically singular)",
+                i / q,
+                i % q
+            )
+        })?;
         Ok(Self {
             precision,
             interaction,
@@ -315,6 +324,8 @@ impl CrfModel {
             column: e.column(),
             message: e.to_string(),
         })?;
+        crate::error::check_lambda("lambda_precision", raw.lambda_precision)?;
+        crate::error::check_lambda("lambda_interaction", raw.lambda_interaction)?;
         let mut model = Self::from_parts(raw.precision, raw.interaction, raw.offset)?;
         model.lambda_precision = raw.lambda_precision;
         model.lambda_interaction = raw.lambda_interaction;

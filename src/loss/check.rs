@@ -32,8 +32,10 @@ impl DerivativeReport {
 /// differences along `directions` random unit directions (seeded, reproducible).
 ///
 /// # Errors
-/// [`Error::ShapeMismatch`] if `x` has the wrong length, [`Error::InvalidArgument`] if x or
-/// the finite-difference points leave the domain.
+/// [`Error::ShapeMismatch`] if `x` has the wrong length, [`Error::NonFinite`] if it holds
+/// NaN or ±Inf, [`Error::InvalidArgument`] if x or the finite-difference points leave the
+/// domain. A NaN anywhere in the comparison (a loss that returns NaN) makes the reported
+/// error NaN, which [`DerivativeReport::passes`] rejects.
 pub fn check_derivatives<L: Loss + ?Sized>(
     loss: &L,
     x: &[f64],
@@ -48,6 +50,7 @@ pub fn check_derivatives<L: Loss + ?Sized>(
             found: x.len().to_string(),
         });
     }
+    crate::error::check_finite("point", x, |k| format!("coordinate {k}"))?;
     let outside = || Error::InvalidArgument("finite-difference point outside the domain".into());
     loss.value(x).ok_or_else(outside)?;
     let scale = x.iter().fold(1.0f64, |a, v| a.max(v.abs()));
@@ -79,17 +82,66 @@ pub fn check_derivatives<L: Loss + ?Sized>(
         let fm = loss.value(&xm).ok_or_else(outside)?;
         let fd = (fp - fm) / (2.0 * h);
         let an: f64 = g.iter().zip(&u).map(|(a, b)| a * b).sum();
-        report.gradient_error = report
-            .gradient_error
-            .max((an - fd).abs() / an.abs().max(1.0));
+        report.gradient_error = nan_max(report.gradient_error, (an - fd).abs() / an.abs().max(1.0));
         loss.gradient(&xp, &mut gp);
         loss.gradient(&xm, &mut gm);
         loss.hess_vec(x, &u, &mut hv);
         let hnorm = hv.iter().fold(1.0f64, |a, v| a.max(v.abs()));
         let err = (0..m)
             .map(|k| (hv[k] - (gp[k] - gm[k]) / (2.0 * h)).abs())
-            .fold(0.0f64, f64::max);
-        report.hessian_error = report.hessian_error.max(err / hnorm);
+            .fold(0.0f64, nan_max);
+        report.hessian_error = nan_max(report.hessian_error, err / hnorm);
     }
     Ok(report)
+}
+
+/// max(a, b), NaN if either is NaN (`f64::max` would drop a NaN and hide a broken loss).
+fn nan_max(a: f64, b: f64) -> f64 {
+    if a.is_nan() || b.is_nan() {
+        f64::NAN
+    } else {
+        a.max(b)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::LeastSquares;
+
+    /// A non-finite point is a typed error; a loss whose gradient is NaN fails the check
+    /// instead of passing with error 0.
+    #[test]
+    fn non_finite_points_and_nan_derivatives_are_caught() {
+        let x = ndarray::array![[1.0, 0.5], [0.0, 2.0], [1.5, -1.0]];
+        let ls = LeastSquares::from_dense(x.view(), &[1.0, 0.0, 2.0], false).unwrap();
+        assert!(check_derivatives(&ls, &[0.1, 0.2], 5, 1)
+            .unwrap()
+            .passes(1e-6));
+        for bad in [[f64::NAN, 0.0], [0.0, f64::INFINITY]] {
+            assert!(matches!(
+                check_derivatives(&ls, &bad, 5, 1),
+                Err(Error::NonFinite { .. })
+            ));
+        }
+        /// ½‖x‖² with a NaN in its gradient.
+        struct BrokenGradient;
+        impl Loss for BrokenGradient {
+            fn dim(&self) -> usize {
+                2
+            }
+            fn value(&self, x: &[f64]) -> Option<f64> {
+                Some(0.5 * x.iter().map(|v| v * v).sum::<f64>())
+            }
+            fn gradient(&self, x: &[f64], g: &mut [f64]) {
+                g.copy_from_slice(x);
+                g[1] = f64::NAN;
+            }
+            fn hess_vec(&self, _x: &[f64], v: &[f64], out: &mut [f64]) {
+                out.copy_from_slice(v);
+            }
+        }
+        let report = check_derivatives(&BrokenGradient, &[0.3, -0.2], 5, 1).unwrap();
+        assert!(!report.passes(1e-6), "{report:?}");
+    }
 }

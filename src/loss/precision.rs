@@ -184,9 +184,12 @@ impl LogDet {
     /// unless `penalize_diagonal`.
     ///
     /// # Errors
-    /// As [`validate_covariance`].
+    /// As [`validate_covariance`], and [`Error::NotPositiveDefinite`] for an S that is not
+    /// positive semidefinite ([`crate::precision::check_semidefinite`]: with an indefinite
+    /// S the problem can be unbounded below).
     pub fn new(s: ArrayView2<f64>, penalize_diagonal: bool) -> Result<Self> {
         let s = validate_covariance(s, "covariance")?;
+        crate::precision::semidefinite(&s)?;
         let p = s.nrows();
         let dim = p * (p + 1) / 2;
         if dim >= NONE as usize {
@@ -1054,6 +1057,12 @@ mod tests {
         let neg = ndarray::array![[1.0, 0.0], [0.0, -1.0]];
         assert!(matches!(
             LogDet::new(neg.view(), false),
+            Err(Error::NotPositiveDefinite(_))
+        ));
+        // Positive diagonal but indefinite (eigenvalues 3 and −1): unbounded below.
+        let indefinite = ndarray::array![[1.0, 2.0], [2.0, 1.0]];
+        assert!(matches!(
+            LogDet::new(indefinite.view(), false),
             Err(Error::NotPositiveDefinite(_))
         ));
         let rect = Array2::<f64>::zeros((2, 3));
