@@ -218,6 +218,24 @@ fn non_finite_start() {
 }
 
 #[test]
+fn start_where_the_loss_overflows() {
+    // Finite coordinates whose squared residuals overflow: f = ∞ there, for every solver.
+    let loss = ls();
+    let start = vec![1e200; loss.dim()];
+    let solvers: Vec<Box<dyn Solver>> = vec![
+        Box::new(NewtonCd::default()),
+        Box::new(ellone::solver::Fista::default()),
+        Box::new(ellone::solver::Owlqn::default()),
+    ];
+    for solver in &solvers {
+        let e = solver
+            .solve_observed(&loss, &pen(), Some(&start), None)
+            .unwrap_err();
+        assert!(matches!(e, Error::InvalidArgument(_)), "{e:?}");
+    }
+}
+
+#[test]
 fn invalid_tolerance() {
     let loss = ls();
     for tol in [0.0, -1e-7, f64::NAN, f64::INFINITY] {

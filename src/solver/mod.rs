@@ -354,9 +354,11 @@ impl<'o> Run<'o> {
                     });
                 }
                 crate::error::check_finite("starting point", s, |i| format!("index {i}"))?;
-                if loss.value(s).is_none() {
+                if !loss.value(s).is_some_and(f64::is_finite) {
                     return Err(Error::InvalidArgument(
-                        "the starting point is outside the domain of the loss".into(),
+                        "the starting point is outside the domain of the loss, or the loss \
+                         is not finite there"
+                            .into(),
                     ));
                 }
                 s.to_vec()
