@@ -36,4 +36,4 @@ pub use alternating::Alternating;
 pub use data::{ColumnMap, CrfData, InputMode};
 pub use fit::{fit, fit_observed, model_from_solution, CrfFit, CrfMethod, CrfOptions};
 pub use loss::CrfLoss;
-pub use model::{CrfModel, ScenarioScores};
+pub use model::{CrfModel, ScenarioScores, MAX_SCENARIO_VALUES};
