@@ -5,6 +5,12 @@
 //! caller's array had), sparse data is kept in compressed sparse column (CSC) form and is
 //! never densified. Every kernel below costs O(n) for a dense column and O(nnz_j) for a
 //! sparse one.
+//!
+//! The constructors and [`Design::select_rows`] validate their input and return typed
+//! errors. The column kernels (`col_dot`, `col_axpy`, `matvec`, `tmatvec`, …) are inner-loop
+//! building blocks for losses and do not re-check their arguments: they expect a column
+//! index below p and vectors of length n (rows) or p (coefficients), and out-of-range
+//! arguments are a caller bug that may panic, like indexing a slice out of range.
 
 use crate::error::{Error, Result};
 use ndarray::{ArrayView2, ShapeBuilder};

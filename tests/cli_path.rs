@@ -371,7 +371,7 @@ fn crf_path_and_cv() {
             );
             match c["block"][e].as_str().unwrap() {
                 "precision" => {
-                    assert_eq!(k, ellone::crf::loss::tri_index(q, i, j));
+                    assert_eq!(Some(k), ellone::crf::loss::tri_index(q, i, j));
                     if t == 0 {
                         assert_eq!(i, j, "off-diagonal Λ at λ_max");
                     }

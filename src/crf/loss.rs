@@ -60,9 +60,16 @@ pub(crate) struct State {
     pub(crate) psi: Array2<f64>,
 }
 
-/// Index of the coordinate of Λ_kl (k ≤ l) in the row-by-row upper triangle of a q×q matrix.
+/// Index of the coordinate of Λ_kl in the row-by-row upper triangle of a q×q matrix:
+/// `Some` for k ≤ l < q, `None` otherwise.
 #[inline]
-pub fn tri_index(q: usize, k: usize, l: usize) -> usize {
+pub fn tri_index(q: usize, k: usize, l: usize) -> Option<usize> {
+    (k <= l && l < q).then(|| tri_offset(q, k, l))
+}
+
+/// [`tri_index`] for k ≤ l < q.
+#[inline]
+fn tri_offset(q: usize, k: usize, l: usize) -> usize {
     k * (2 * q - k + 1) / 2 + (l - k)
 }
 
@@ -375,12 +382,35 @@ impl Loss for CrfLoss {
         let q = self.data.q;
         let mut x = vec![0.0; self.dim()];
         for k in 0..q {
-            x[tri_index(q, k, k)] = 1.0 / self.data.syy[[k, k]];
+            x[tri_offset(q, k, k)] = 1.0 / self.data.syy[[k, k]];
         }
         x
     }
 
     fn local_model<'a>(&'a self, x: &[f64]) -> Result<Box<dyn LocalModel + 'a>> {
         Ok(Box::new(CrfLocal::new(self, x, true)?))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::tri_index;
+
+    /// The upper triangle of a q×q matrix, row by row, numbers its q(q+1)/2 entries
+    /// 0, 1, 2, … without gaps; pairs outside it have no index.
+    #[test]
+    fn triangle_indices_count_row_by_row() {
+        let q = 5;
+        let mut next = 0;
+        for k in 0..q {
+            for l in k..q {
+                assert_eq!(tri_index(q, k, l), Some(next));
+                next += 1;
+            }
+        }
+        assert_eq!(next, q * (q + 1) / 2);
+        assert_eq!(tri_index(3, 2, 1), None);
+        assert_eq!(tri_index(3, 1, 3), None);
+        assert_eq!(tri_index(3, 5, 9), None);
     }
 }

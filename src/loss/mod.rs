@@ -28,6 +28,13 @@ use crate::error::Result;
 use crate::penalty::ResolvedPenalty;
 
 /// A smooth convex loss over R^m (m = [`Loss::dim`]).
+///
+/// Contract of the slice arguments: `x`, `v`, `g` and `out` have length m. The solvers,
+/// [`check_derivatives`] and the other entry points of the crate check user-supplied
+/// points (length, finiteness, domain) before they call these methods, and return typed
+/// errors; the methods themselves do not re-check on every call (they sit in the inner
+/// loops), so calling one directly with slices of another length is a caller bug that may
+/// panic, like indexing a slice out of range.
 pub trait Loss: Send + Sync {
     /// Number of coordinates m.
     fn dim(&self) -> usize;
