@@ -308,6 +308,13 @@ impl NewtonCd {
                 run.fix_scale(loss, &g); // x is the default start if the scale was deferred
             }
             let objective = model.value() + pen.value(&x);
+            if iteration == 0 && !objective.is_finite() {
+                // Data whose loss overflows (e.g. a response of 1e300 in least squares)
+                // would otherwise "converge" to an infinite objective.
+                return Err(crate::Error::Numerical(
+                    "the objective is not finite at the starting point (rescale the data)".into(),
+                ));
+            }
             // The KKT residual and the free set F = {x_k ≠ 0} ∪ {|g_k| ≥ λ_k} in one pass over
             // the candidates (the free set is rebuilt below for a cold-start working set).
             free.clear();
