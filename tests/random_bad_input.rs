@@ -235,3 +235,150 @@ impl<T: Loss + CrossValidate> CvLoss for T {
         self
     }
 }
+
+/// A q × r matrix of adversarial values (ordinary ones mostly).
+fn matrix(rng: &mut StdRng, q: usize, r: usize, finite: bool) -> Array2<f64> {
+    Array2::from_shape_fn((q, r), |_| {
+        if rng.random_range(0..4) == 0 {
+            value(rng, finite)
+        } else {
+            rng.random_range(-3.0..3.0)
+        }
+    })
+}
+
+/// The same for sparse precision matrices and Gaussian CRFs: `estimate_precision` on
+/// samples or covariances (Gram matrices, raw and non-square ones), random weights, warm
+/// starts and options; `crf::fit` with every method and input mode, then prediction,
+/// scenarios, likelihood and a JSON round trip of the fitted model; `CrfModel::from_parts`.
+/// No panic; a converged fit has a finite objective.
+#[test]
+fn random_bad_precision_and_crf_input_never_panics() {
+    use ellone::crf::{fit, CrfMethod, CrfModel, CrfOptions, InputMode};
+    use ellone::precision::{estimate_precision, PrecisionInput, PrecisionOptions};
+    let mut rng = StdRng::seed_from_u64(777);
+    let options = |rng: &mut StdRng| SolverOptions {
+        tol: [1e-7, 1e-3, 0.5][rng.random_range(0..3)],
+        max_iter: [0, 1, 5, 60][rng.random_range(0..4)],
+        time_limit: Some(Duration::from_millis(300)),
+        ..Default::default()
+    };
+    let mut fitted = 0;
+    for it in 0..3000 {
+        let p = rng.random_range(0..4);
+        let finite = rng.random_range(0..4) > 0;
+        let rows = rng.random_range(0..5);
+        let a = matrix(&mut rng, rows, p, finite);
+        let s = if rng.random::<bool>() && rows > 0 {
+            a.t().dot(&a)
+        } else {
+            let cols = if rng.random_range(0..8) == 0 {
+                p + 1
+            } else {
+                p
+            };
+            matrix(&mut rng, p, cols, finite)
+        };
+        let lambda = level(&mut rng);
+        let opts = PrecisionOptions {
+            penalize_diagonal: rng.random::<bool>(),
+            weights: (rng.random_range(0..4) == 0).then(|| {
+                let w = matrix(&mut rng, p, p, true).mapv(f64::abs);
+                &w + &w.t()
+            }),
+            warm_start: (rng.random_range(0..5) == 0).then(|| matrix(&mut rng, p, p, finite)),
+            screening: rng.random::<bool>(),
+            centre: rng.random::<bool>(),
+            standardise: rng.random::<bool>(),
+            solver: options(&mut rng),
+        };
+        let data = rng.random::<bool>();
+        let case = format!("precision, iteration {it}: samples {a:?}, S {s:?}, λ {lambda}");
+        let result = no_panic(&case, || {
+            let input = if data {
+                PrecisionInput::Data(a.view())
+            } else {
+                PrecisionInput::Covariance(s.view())
+            };
+            estimate_precision(input, lambda, &opts)
+        });
+        if let Ok(f) = result {
+            fitted += 1;
+            if f.status == Status::Converged {
+                assert!(f.objective.is_finite(), "{case}: objective {}", f.objective);
+            }
+        }
+
+        let (n, p, q) = (
+            rng.random_range(0..6),
+            rng.random_range(0..3),
+            rng.random_range(0..3),
+        );
+        let x = matrix(&mut rng, n, p, finite);
+        let ny = if rng.random_range(0..8) == 0 {
+            n + 1
+        } else {
+            n
+        };
+        let y = matrix(&mut rng, ny, q, finite);
+        let mut opts = CrfOptions::new(level(&mut rng), level(&mut rng));
+        opts.center = rng.random::<bool>();
+        opts.standardize = rng.random::<bool>();
+        opts.input_mode =
+            [InputMode::Auto, InputMode::Gram, InputMode::Data][rng.random_range(0..3)];
+        opts.method = [
+            CrfMethod::Joint,
+            CrfMethod::Alternating,
+            CrfMethod::QuasiNewton,
+        ][rng.random_range(0..3)];
+        opts.solver = options(&mut rng);
+        let case = format!("CRF, iteration {it}: x {x:?}, y {y:?}, {opts:?}");
+        if let Ok(f) = no_panic(&case, || fit(x.view(), y.view(), &opts)) {
+            fitted += 1;
+            if f.solution.status == Status::Converged {
+                assert!(f.solution.objective.is_finite(), "{case}");
+            }
+            let m = f.model;
+            let cols = if rng.random_range(0..5) == 0 {
+                p + 1
+            } else {
+                p
+            };
+            let (rows, finite_x) = (rng.random_range(0..3), rng.random::<bool>());
+            let xt = matrix(&mut rng, rows, cols, finite_x);
+            let cols = if rng.random_range(0..5) == 0 {
+                q + 1
+            } else {
+                q
+            };
+            let finite_y = rng.random::<bool>();
+            let yt = matrix(&mut rng, xt.nrows(), cols, finite_y);
+            let scenarios = rng.random_range(0..4);
+            let case = format!("{case}, test x {xt:?}, test y {yt:?}");
+            no_panic(&case, || {
+                let _ = m.predict(xt.view());
+                let _ = m.negative_log_likelihood(xt.view(), yt.view());
+                if xt.nrows() > 0 {
+                    let _ = m.sample(xt.row(0), scenarios, 1);
+                }
+                let _ = m.scenario_scores(xt.view(), yt.view(), scenarios, 1);
+                let _ = m.to_json().map(|t| CrfModel::from_json(&t));
+            });
+        }
+        let q = rng.random_range(0..3);
+        let lam = matrix(&mut rng, q, q, finite);
+        let lam = if rng.random::<bool>() {
+            lam.t().dot(&lam) + Array2::<f64>::eye(q) * value(&mut rng, true).abs()
+        } else {
+            lam
+        };
+        let theta_rows = rng.random_range(0..3);
+        let theta = matrix(&mut rng, theta_rows, q, finite);
+        let offset: Vec<f64> = (0..q).map(|_| value(&mut rng, false)).collect();
+        let case = format!("from_parts, iteration {it}: Λ {lam:?}, Θ {theta:?}");
+        if let Ok(m) = no_panic(&case, || CrfModel::from_parts(lam, theta, offset)) {
+            assert!(m.covariance().iter().all(|v| v.is_finite()), "{case}");
+        }
+    }
+    assert!(fitted > 500, "only {fitted} fits returned Ok");
+}
