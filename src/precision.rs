@@ -161,7 +161,8 @@ pub struct PrecisionFit {
 /// S = X̃ᵀX̃/n, X̃ = X minus its column means when `centre`, else X itself.
 ///
 /// # Errors
-/// [`Error::Empty`] for no rows or columns, [`Error::NonFinite`] for NaN/Inf.
+/// [`Error::Empty`] for no rows or columns, [`Error::NonFinite`] for NaN/Inf in the data or
+/// in S (values beyond about 10¹⁵⁴ overflow when squared: rescale such data).
 pub fn sample_covariance(x: ArrayView2<f64>, centre: bool) -> Result<Array2<f64>> {
     let (n, p) = x.dim();
     if n == 0 || p == 0 {
@@ -191,6 +192,9 @@ pub fn sample_covariance(x: ArrayView2<f64>, centre: bool) -> Result<Array2<f64>
             s[[j, i]] = v;
         }
     }
+    crate::error::check_finite("sample covariance (rescale the data)", s.iter(), |k| {
+        format!("row {}, column {}", k / p, k % p)
+    })?;
     Ok(s)
 }
 

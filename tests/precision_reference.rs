@@ -331,6 +331,12 @@ fn bad_input_is_rejected_with_typed_errors() {
         estimate_precision(PrecisionInput::Data(Array2::zeros((0, 3)).view()), 0.1, &d),
         Err(Error::Empty(_))
     ));
+    // Finite data whose squares overflow: the sample covariance would hold ∞.
+    let huge = read_numeric_table("macrodata.csv").1 * 1e200;
+    assert!(matches!(
+        estimate_precision(PrecisionInput::Data(huge.view()), 0.1, &d),
+        Err(Error::NonFinite { .. })
+    ));
     // Weights: wrong shape, negative, not symmetric.
     let bad_w = |w: Array2<f64>| PrecisionOptions {
         weights: Some(w),
