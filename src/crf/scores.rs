@@ -140,9 +140,17 @@ pub fn gaussian_crps(mean: f64, sd: f64, y: f64) -> Result<f64> {
             "gaussian_crps needs finite mean and outcome and sd > 0 (mean {mean}, sd {sd}, y {y})"
         )));
     }
-    let z = (y - mean) / sd;
+    let d = y - mean;
+    if !d.is_finite() {
+        return Err(Error::InvalidArgument(format!(
+            "gaussian_crps: y − mean overflows (mean {mean}, y {y})"
+        )));
+    }
+    let z = d / sd;
     let pdf = (-0.5 * z * z).exp() / (2.0 * std::f64::consts::PI).sqrt();
-    Ok(sd * (z * (2.0 * normal_cdf(z) - 1.0) + 2.0 * pdf - 1.0 / std::f64::consts::PI.sqrt()))
+    // sd·z(2Φ(z) − 1) written as d(2Φ(z) − 1): with a tiny sd, z overflows to ±∞ and the
+    // CRPS tends to |y − mean|, which this form returns instead of sd·∞.
+    Ok(d * (2.0 * normal_cdf(z) - 1.0) + sd * (2.0 * pdf - 1.0 / std::f64::consts::PI.sqrt()))
 }
 
 #[cfg(test)]
@@ -166,6 +174,18 @@ mod tests {
         let v = gaussian_crps(1.0, 2.0, 1.0).unwrap();
         let expect = 2.0 * (2f64.sqrt() - 1.0) / std::f64::consts::PI.sqrt();
         assert!((v - expect).abs() < 1e-13);
+    }
+
+    // Limit sd → 0: the forecast is a point mass at μ, whose CRPS is |y − μ| (closed form:
+    // the CRPS of a deterministic forecast is the absolute error). A subnormal sd used to
+    // give ∞ (sd·z with z = ∞); an overflowing difference is an error.
+    #[test]
+    fn gaussian_crps_of_a_point_forecast() {
+        for sd in [1e-12, 1e-300, 1e-320] {
+            let v = gaussian_crps(0.5, sd, 2.0).unwrap();
+            assert!((v - 1.5).abs() < 1e-11, "sd {sd}: {v}");
+        }
+        assert!(gaussian_crps(-1e308, 1.0, 1e308).is_err());
     }
 
     // By hand: scenarios {0, 2}, outcome 1: E|X − y| = 1, E|X − X'| = (0 + 2 + 2 + 0)/4 = 1,
