@@ -43,15 +43,33 @@ fn check_samples(samples: &ArrayView2<f64>, y: &ArrayView1<f64>) -> Result<()> {
 ///
 /// # Errors
 /// [`Error::Empty`] for no scenarios or outputs, [`Error::ShapeMismatch`] if `y` has the
-/// wrong length, [`Error::NonFinite`] for NaN/Inf.
+/// wrong length, [`Error::NonFinite`] for NaN/Inf in the input, or for a score that
+/// overflows (scenarios that differ by more than about 10³⁰⁸).
 pub fn energy_score(samples: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<f64> {
     check_samples(&samples, &y)?;
     let m = samples.nrows();
     let rows: Vec<Vec<f64>> = samples.rows().into_iter().map(|r| r.to_vec()).collect();
+    // Euclidean distance; recomputed with the entries scaled by the largest one when the
+    // plain sum of squares overflows (scenarios near ±1e200 would otherwise give ∞ − ∞).
     let dist = |a: &[f64], b: &[f64]| -> f64 {
-        a.iter()
+        let plain = a
+            .iter()
             .zip(b)
             .map(|(u, v)| (u - v) * (u - v))
+            .sum::<f64>()
+            .sqrt();
+        if plain.is_finite() {
+            return plain;
+        }
+        let top = a
+            .iter()
+            .zip(b)
+            .map(|(u, v)| (u - v).abs())
+            .fold(0.0, f64::max);
+        top * a
+            .iter()
+            .zip(b)
+            .map(|(u, v)| ((u - v) / top).powi(2))
             .sum::<f64>()
             .sqrt()
     };
@@ -64,18 +82,25 @@ pub fn energy_score(samples: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<f64>
         }
     }
     // Σ_{i,j} = 2 Σ_{i<j}; times 1/(2m²).
-    Ok(first - pair / (m as f64 * m as f64))
+    let score = first - pair / (m as f64 * m as f64);
+    if !score.is_finite() {
+        return Err(Error::NonFinite {
+            what: "energy score (the scenarios' spread overflows)".into(),
+            location: format!("{m} scenarios"),
+        });
+    }
+    Ok(score)
 }
 
 /// The CRPS of the empirical distribution of each column of `samples` (m×q) for the
 /// matching entry of `y`: one score per output.
 ///
 /// # Errors
-/// As [`energy_score`].
+/// As [`energy_score`] (including an overflowing score).
 pub fn crps(samples: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<Vec<f64>> {
     check_samples(&samples, &y)?;
     let m = samples.nrows() as f64;
-    Ok(samples
+    let scores: Vec<f64> = samples
         .columns()
         .into_iter()
         .zip(y.iter())
@@ -91,13 +116,21 @@ pub fn crps(samples: ArrayView2<f64>, y: ArrayView1<f64>) -> Result<Vec<f64>> {
             // Σ_{i,j}|x_i − x_j| = 2·pair; times 1/(2m²).
             first - pair / (m * m)
         })
-        .collect())
+        .collect();
+    match scores.iter().position(|v| !v.is_finite()) {
+        Some(j) => Err(Error::NonFinite {
+            what: "CRPS (the scenarios' spread overflows)".into(),
+            location: format!("output {j}"),
+        }),
+        None => Ok(scores),
+    }
 }
 
 /// erfc(x) to about 1e-14: the Maclaurin series of erf for |x| < 3 (its largest term is
 /// below 200, so little is lost to cancellation) and the continued fraction
 /// erfc(x) = e^{−x²}/√π · 1/(x + ½/(x + 1/(x + (3/2)/(x + …)))) for x ≥ 3, evaluated
-/// backwards from 80 terms (textbook expansions, e.g. Abramowitz & Stegun 7.1.5 and 7.1.14).
+/// backwards from 80 terms (textbook expansions: "Handbook of mathematical functions",
+/// National Bureau of Standards, 1964, formulas 7.1.5 and 7.1.14).
 fn erfc(x: f64) -> f64 {
     if x.is_nan() {
         return f64::NAN;
@@ -196,5 +229,14 @@ mod tests {
         let y = ndarray::array![1.0];
         assert!((crps(s.view(), y.view()).unwrap()[0] - 0.5).abs() < 1e-15);
         assert!((energy_score(s.view(), y.view()).unwrap() - 0.5).abs() < 1e-15);
+        // The same ensemble scaled by 1e200 (squares overflow): the score scales with it.
+        let big = &s * 1e200;
+        let y_big = &y * 1e200;
+        let es = energy_score(big.view(), y_big.view()).unwrap();
+        assert!((es / 1e200 - 0.5).abs() < 1e-12, "{es}");
+        // Spreads beyond the double range are errors, not ∞ − ∞ = NaN.
+        let wide = ndarray::array![[-1e308], [1e308]];
+        assert!(crps(wide.view(), ndarray::array![0.0].view()).is_err());
+        assert!(energy_score(wide.view(), ndarray::array![0.0].view()).is_err());
     }
 }
