@@ -12,7 +12,7 @@
 //! within one standard error of that minimum (the "one-standard-error rule", common
 //! practice since "Classification and Regression Trees", Wadsworth, 1984).
 
-use crate::error::{Error, Result};
+use crate::error::{check_rows, Error, Result};
 use crate::loss::{LeastSquares, Logistic, Loss};
 use crate::path::{fit_path, lambda_max, log_grid, PathOptions};
 use crate::penalty::Penalty;
@@ -49,13 +49,10 @@ impl CrossValidate for LeastSquares {
         self.design().ncols()
     }
     fn subset(&self, rows: &[usize]) -> Result<Box<dyn CrossValidate>> {
-        check_rows(rows, self.n_samples())?;
+        // `select_rows` checks the rows.
+        let x = self.design().select_rows(rows)?;
         let y = rows.iter().map(|&i| self.response()[i]).collect();
-        Ok(Box::new(LeastSquares::new(
-            self.design().select_rows(rows)?,
-            y,
-            self.has_intercept(),
-        )?))
+        Ok(Box::new(LeastSquares::new(x, y, self.has_intercept())?))
     }
     /// Mean squared prediction error.
     fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>> {
@@ -83,13 +80,10 @@ impl CrossValidate for Logistic {
         self.design().ncols()
     }
     fn subset(&self, rows: &[usize]) -> Result<Box<dyn CrossValidate>> {
-        check_rows(rows, self.n_samples())?;
+        // `select_rows` checks the rows.
+        let x = self.design().select_rows(rows)?;
         let y = rows.iter().map(|&i| self.labels()[i]).collect();
-        Ok(Box::new(Logistic::new(
-            self.design().select_rows(rows)?,
-            y,
-            self.has_intercept(),
-        )?))
+        Ok(Box::new(Logistic::new(x, y, self.has_intercept())?))
     }
     /// Mean deviance 2·Σ[softplus(η) − yη]/m, then the misclassification rate.
     fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>> {
@@ -109,22 +103,6 @@ impl CrossValidate for Logistic {
     }
     fn score_names(&self) -> Vec<&'static str> {
         vec!["deviance", "misclassification"]
-    }
-}
-
-/// Checks a row subset of n rows: non-empty, every index below n.
-///
-/// # Errors
-/// [`Error::Empty`] for no rows, [`Error::InvalidArgument`] for an index ≥ n.
-pub(crate) fn check_rows(rows: &[usize], n: usize) -> Result<()> {
-    if rows.is_empty() {
-        return Err(Error::Empty("row subset".into()));
-    }
-    match rows.iter().find(|&&i| i >= n) {
-        Some(&i) => Err(Error::InvalidArgument(format!(
-            "row index {i} is out of range 0..{n}"
-        ))),
-        None => Ok(()),
     }
 }
 

@@ -15,7 +15,7 @@
 
 use crate::crf::{model_from_solution, CrfData, CrfLoss, InputMode};
 use crate::cv::CrossValidate;
-use crate::error::{Error, Result};
+use crate::error::Result;
 use crate::loss::Loss;
 use crate::penalty::ResolvedPenalty;
 use ndarray::{Array2, ArrayView2, Axis};
@@ -56,7 +56,7 @@ impl CrfProblem {
     /// as [`CrfData::new`] does, with λ_Θ = `ratio`·λ_Λ along the path.
     ///
     /// # Errors
-    /// As [`CrfData::new`]; [`Error::InvalidLambda`] for a negative or non-finite ratio.
+    /// As [`CrfData::new`]; [`Error::InvalidLambda`](crate::Error::InvalidLambda) for a negative or non-finite ratio.
     pub fn new(
         x: ArrayView2<f64>,
         y: ArrayView2<f64>,
@@ -109,7 +109,7 @@ impl CrfProblem {
     }
 
     fn subset_problem(&self, rows: &[usize]) -> Result<Self> {
-        crate::cv::check_rows(rows, self.x.nrows())?;
+        crate::error::check_rows(rows, self.x.nrows())?;
         let x = self.x.select(Axis(0), rows);
         let y = self.y.select(Axis(0), rows);
         Self::new(
@@ -125,15 +125,11 @@ impl CrfProblem {
     /// coordinates `x` fitted on the other rows (see the module docs).
     ///
     /// # Errors
-    /// [`Error::InvalidArgument`] for an empty or out-of-range row set; errors of
-    /// [`model_from_solution`] (wrong length, Λ not positive definite).
+    /// [`Error::Empty`](crate::Error::Empty) for no rows, [`Error::InvalidArgument`](crate::Error::InvalidArgument) for a row out of range;
+    /// errors of [`model_from_solution`] (wrong length, Λ not positive definite).
     pub fn held_out_nll(&self, rows: &[usize], x: &[f64]) -> Result<f64> {
         let n = self.x.nrows();
-        if rows.is_empty() || rows.iter().any(|&i| i >= n) {
-            return Err(Error::InvalidArgument(format!(
-                "held-out rows must be a non-empty subset of 0..{n}"
-            )));
-        }
+        crate::error::check_rows(rows, n)?;
         let train = self.training_loss(rows)?;
         let model = model_from_solution(&train, x)?;
         let xt = self.x.select(Axis(0), rows);
@@ -162,7 +158,7 @@ impl CrossValidate for CrfProblem {
     }
     /// The mean held-out conditional negative log-likelihood; NaN where it is undefined.
     fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>> {
-        crate::cv::check_rows(rows, self.x.nrows())?;
+        crate::error::check_rows(rows, self.x.nrows())?;
         Ok(vec![self.held_out_nll(rows, x).unwrap_or(f64::NAN)])
     }
     fn score_names(&self) -> Vec<&'static str> {

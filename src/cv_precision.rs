@@ -71,7 +71,8 @@ impl PrecisionProblem {
     /// `rows`, centred by the means of the remaining rows when the problem centres.
     ///
     /// # Errors
-    /// [`Error::InvalidArgument`] without samples, for an empty or out-of-range row set;
+    /// [`Error::InvalidArgument`] without samples or for a row out of range,
+    /// [`Error::Empty`] for no rows;
     /// [`Error::NotPositiveDefinite`] if Θ is not positive definite; shape errors of
     /// [`LogDet::to_matrix`].
     pub fn held_out_nll(&self, rows: &[usize], x: &[f64]) -> Result<f64> {
@@ -79,11 +80,7 @@ impl PrecisionProblem {
             Error::InvalidArgument("the problem was built from a covariance: no samples".into())
         })?;
         let (n, p) = data.dim();
-        if rows.is_empty() || rows.iter().any(|&i| i >= n) {
-            return Err(Error::InvalidArgument(format!(
-                "held-out rows must be a non-empty subset of 0..{n}"
-            )));
-        }
+        crate::error::check_rows(rows, n)?;
         let theta = self.loss.to_matrix(x)?;
         let chol = linalg::cholesky(theta.view())
             .ok_or_else(|| Error::NotPositiveDefinite("precision matrix".into()))?;
@@ -167,7 +164,7 @@ impl CrossValidate for PrecisionProblem {
         let data = self.data.as_ref().ok_or_else(|| {
             Error::InvalidArgument("the problem was built from a covariance: no samples".into())
         })?;
-        crate::cv::check_rows(rows, data.nrows())?;
+        crate::error::check_rows(rows, data.nrows())?;
         let sub = data.select(ndarray::Axis(0), rows);
         Ok(Box::new(PrecisionProblem::from_samples(
             sub.view(),
@@ -178,7 +175,7 @@ impl CrossValidate for PrecisionProblem {
     /// The mean held-out negative log-likelihood ([`PrecisionProblem::held_out_nll`]); NaN
     /// where it is undefined.
     fn held_out(&self, rows: &[usize], x: &[f64]) -> Result<Vec<f64>> {
-        crate::cv::check_rows(rows, self.n_samples())?;
+        crate::error::check_rows(rows, self.n_samples())?;
         crate::cv::check_coordinates(x, self.loss.dim())?;
         Ok(vec![self.held_out_nll(rows, x).unwrap_or(f64::NAN)])
     }

@@ -318,7 +318,7 @@ impl Design {
     /// # Errors
     /// [`Error::Empty`] for no rows, [`Error::InvalidArgument`] for a row index ≥ n.
     pub fn select_rows(&self, rows: &[usize]) -> Result<Design> {
-        crate::cv::check_rows(rows, self.n)?;
+        crate::error::check_rows(rows, self.n)?;
         let m = rows.len();
         match &self.storage {
             Storage::Dense(d) => {

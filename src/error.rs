@@ -119,6 +119,22 @@ where
     Ok(())
 }
 
+/// Checks a row subset of n rows: non-empty, every index below n.
+///
+/// # Errors
+/// [`Error::Empty`] for no rows, [`Error::InvalidArgument`] for an index ≥ n.
+pub(crate) fn check_rows(rows: &[usize], n: usize) -> Result<()> {
+    if rows.is_empty() {
+        return Err(Error::Empty("row subset".into()));
+    }
+    match rows.iter().find(|&&i| i >= n) {
+        Some(&i) => Err(Error::InvalidArgument(format!(
+            "row index {i} is out of range 0..{n}"
+        ))),
+        None => Ok(()),
+    }
+}
+
 /// Checks that a regularisation parameter is finite and non-negative.
 pub(crate) fn check_lambda(name: &str, value: f64) -> Result<()> {
     if value.is_finite() && value >= 0.0 {
