@@ -7,7 +7,7 @@
 //! visible. A dashed horizontal line marks the race's target accuracy.
 
 use crate::error::{Error, Result};
-use crate::plot::draw_legend;
+use crate::plot::{draw_legend, PLOT_LIMIT};
 use crate::race::RaceResult;
 use plotters::prelude::*;
 use std::path::Path;
@@ -28,7 +28,8 @@ const PALETTE: [RGBColor; 6] = [
 /// Writes the SVG convergence plot of `result` to `path` (width × height pixels).
 ///
 /// # Errors
-/// [`Error::InvalidArgument`] for a race without records or a size below 200 × 150;
+/// [`Error::InvalidArgument`] for a race without records, a size below 200 × 150, or
+/// times or suboptimalities beyond [`PLOT_LIMIT`];
 /// [`Error::Io`] if drawing or writing the file fails.
 pub fn plot_race(result: &RaceResult, path: &Path, width: u32, height: u32) -> Result<()> {
     if width < 200 || height < 150 {
@@ -71,6 +72,12 @@ pub fn plot_race(result: &RaceResult, path: &Path, width: u32, height: u32) -> R
     s_min = s_min.min(target) / 3.0;
     s_max = s_max.max(target) * 3.0;
     let t_max = if t_max > 0.0 { t_max * 1.05 } else { 1e-3 };
+    if !(t_max <= PLOT_LIMIT && s_max <= PLOT_LIMIT) {
+        return Err(Error::InvalidArgument(format!(
+            "times or suboptimalities beyond the plottable range {PLOT_LIMIT:e} \
+             (largest time {t_max:e} s, largest suboptimality {s_max:e})"
+        )));
+    }
     let io = |e: String| Error::Io {
         file: path.display().to_string(),
         message: e,

@@ -214,3 +214,65 @@ fn cv_plot_is_well_formed_and_marks_both_choices() {
     assert!(plot_cv(&cv, &file, "t", 100, 100).is_err());
     let _ = std::fs::remove_file(&file);
 }
+
+/// Values a double holds but a drawing cannot: the axis arithmetic of the SVG library
+/// used to overflow (a debug-build panic) or loop without end on ranges near ±1e308 and on
+/// spans of a few ulps. Such input is now a typed error, and tiny but representable spans
+/// still draw. (Edge cases of our own plotting code; no outside reference applies.)
+#[test]
+fn extreme_values_are_errors_and_tiny_spans_still_draw() {
+    let (loss, names) = macrodata();
+    let path = fit_path(
+        &loss,
+        &Penalty::l1(1.0).unwrap(),
+        (203, names.len()),
+        &PathOptions {
+            n_lambdas: 8,
+            ..Default::default()
+        },
+    )
+    .unwrap();
+    let file = temp("extreme.svg");
+    let opts = PathPlotOptions::default();
+    let scaled = |factor: f64| {
+        let mut p = path.clone();
+        for point in &mut p.points {
+            point.x.values.iter_mut().for_each(|v| *v *= factor);
+        }
+        p
+    };
+    // Coefficients near the top of the double range: an error naming the limit.
+    let err = plot_path(&scaled(1e300), &file, &opts).unwrap_err();
+    assert!(err.to_string().contains("plottable range"), "{err}");
+    // Coefficients near the bottom: drawn (the axis widens to a unit interval).
+    plot_path(&scaled(1e-300), &file, &opts).unwrap();
+    assert_well_formed(&std::fs::read_to_string(&file).unwrap());
+
+    // A CV curve whose mean ± s.e. overflows to ∞, and one spanning a few ulps.
+    let cv = cross_validate(
+        &loss,
+        &Penalty::l1(1.0).unwrap(),
+        &CvOptions {
+            folds: 3,
+            seed: 1,
+            path: PathOptions {
+                n_lambdas: 6,
+                ..Default::default()
+            },
+            parallel: false,
+        },
+    )
+    .unwrap();
+    let mut huge = cv.clone();
+    huge.mean.iter_mut().for_each(|m| *m = 1e308);
+    huge.std_error.iter_mut().for_each(|s| *s = 1e308);
+    assert!(plot_cv(&huge, &file, "t", 400, 300).is_err());
+    let mut flat = cv.clone();
+    for (l, m) in flat.mean.iter_mut().enumerate() {
+        *m = 1.0 + l as f64 * f64::EPSILON;
+    }
+    flat.std_error.iter_mut().for_each(|s| *s = 0.0);
+    plot_cv(&flat, &file, "t", 400, 300).unwrap();
+    assert_well_formed(&std::fs::read_to_string(&file).unwrap());
+    let _ = std::fs::remove_file(&file);
+}

@@ -14,7 +14,8 @@ use std::path::Path;
 ///
 /// # Errors
 /// [`Error::InvalidArgument`] for a size below [`super::MIN_SIZE`], inconsistent lengths,
-/// or no λ > 0; [`Error::Io`] if drawing or writing fails.
+/// no λ > 0, or scores beyond ±[`super::PLOT_LIMIT`]; [`Error::Io`] if drawing or writing
+/// fails.
 pub fn plot_cv(cv: &CvResult, file: &Path, title: &str, width: u32, height: u32) -> Result<()> {
     check_size(width, height)?;
     let nl = cv.lambdas.len();
@@ -58,8 +59,8 @@ pub fn plot_cv(cv: &CvResult, file: &Path, title: &str, width: u32, height: u32)
     } else {
         0.05
     };
-    let (x_lo, x_hi) = padded(x_lo, x_hi, 0.03);
-    let (y_lo, y_hi) = padded(y_lo, y_hi, 0.08);
+    let (x_lo, x_hi) = padded(x_lo, x_hi, 0.03)?;
+    let (y_lo, y_hi) = padded(y_lo, y_hi, 0.08)?;
     // Headroom for the three-line legend in the upper left, so it does not cover data.
     let y_hi = y_hi + 0.2 * (y_hi - y_lo);
     let score = cv

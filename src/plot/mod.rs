@@ -64,18 +64,41 @@ pub(crate) fn io_error(path: &Path) -> impl Fn(String) -> Error + '_ {
     }
 }
 
+/// The largest magnitude drawn on a linear axis. Beyond it the axis arithmetic of the
+/// drawing library (tick spacing, pixel mapping) overflows or does not terminate, so such
+/// values are an error: rescale the data before plotting.
+pub const PLOT_LIMIT: f64 = 1e150;
+
 /// An axis range [lo, hi] widened by `pad` of its length on both sides (and to a unit
-/// interval around a single value), so data never sits on the frame.
-pub(crate) fn padded(lo: f64, hi: f64, pad: f64) -> (f64, f64) {
-    if !(lo.is_finite() && hi.is_finite()) {
-        return (0.0, 1.0);
+/// interval around a single value, or around a span too small for a double to divide into
+/// ticks), so data never sits on the frame. An empty range (lo > hi, as left by a fold
+/// over no values) gives [0, 1].
+///
+/// # Errors
+/// [`Error::InvalidArgument`] when the padded range leaves ±[`PLOT_LIMIT`] (including an
+/// end that overflowed to ±∞, or NaN).
+pub(crate) fn padded(lo: f64, hi: f64, pad: f64) -> Result<(f64, f64)> {
+    if lo > hi {
+        return Ok((0.0, 1.0));
     }
+    let big = lo.abs().max(hi.abs());
     let span = hi - lo;
-    if span <= 0.0 {
-        let half = lo.abs().max(1.0) * 0.5;
-        return (lo - half, hi + half);
+    // A span below ~1e3 ulps of the values (or below 1e-150 absolute) cannot be divided
+    // into distinct tick labels: treat it as a single value.
+    let (a, b) = if !(span > 1e3 * f64::EPSILON * big && span > 1.0 / PLOT_LIMIT) {
+        let mid = 0.5 * lo + 0.5 * hi;
+        let half = mid.abs().max(1.0) * 0.5;
+        (mid - half, mid + half)
+    } else {
+        (lo - pad * span, hi + pad * span)
+    };
+    if !(a.abs() <= PLOT_LIMIT && b.abs() <= PLOT_LIMIT) {
+        return Err(Error::InvalidArgument(format!(
+            "values up to {big:e} in magnitude are beyond the plottable range ±{PLOT_LIMIT:e} \
+             (rescale before plotting)"
+        )));
     }
-    (lo - pad * span, hi + pad * span)
+    Ok((a, b))
 }
 
 /// Draws the chart's legend in the shared style (translucent white box, black border) at

@@ -46,8 +46,8 @@ impl Default for PathPlotOptions {
 ///
 /// # Errors
 /// [`Error::InvalidArgument`] for a size below [`super::MIN_SIZE`], a coordinate outside the
-/// problem, names of the wrong length, or a path without a point at λ > 0;
-/// [`Error::Io`] if drawing or writing fails.
+/// problem, names of the wrong length, a path without a point at λ > 0, or coefficients
+/// beyond ±[`super::PLOT_LIMIT`]; [`Error::Io`] if drawing or writing fails.
 pub fn plot_path(path: &RegPath, file: &Path, opts: &PathPlotOptions) -> Result<()> {
     check_size(opts.width, opts.height)?;
     if let Some(names) = &opts.names {
@@ -105,8 +105,8 @@ pub fn plot_path(path: &RegPath, file: &Path, opts: &PathPlotOptions) -> Result<
         .flatten()
         .filter(|v| v.is_finite())
         .fold((0.0f64, 0.0f64), |(a, b), &v| (a.min(v), b.max(v)));
-    let (x_lo, x_hi) = padded(x_lo, x_hi, 0.02);
-    let (y_lo, y_hi) = padded(y_lo, y_hi, 0.05);
+    let (x_lo, x_hi) = padded(x_lo, x_hi, 0.02)?;
+    let (y_lo, y_hi) = padded(y_lo, y_hi, 0.05)?;
     let io = io_error(file);
 
     let root = SVGBackend::new(file, (opts.width, opts.height)).into_drawing_area();

@@ -33,7 +33,8 @@ fn io(file: &Path) -> impl Fn(String) -> Error + '_ {
 /// written.
 ///
 /// # Errors
-/// [`Error::Io`] if the folder cannot be created or a figure cannot be written.
+/// [`Error::Io`] if the folder cannot be created or a figure cannot be written; the
+/// figures' own errors ([`plot_fan`], [`plot_structure`], [`plot_validation`]).
 pub fn write_figures(report: &Report, dir: &Path) -> Result<Vec<PathBuf>> {
     std::fs::create_dir_all(dir).map_err(|e| io(dir)(e.to_string()))?;
     let mut files = Vec::new();
@@ -64,8 +65,8 @@ pub fn write_figures(report: &Report, dir: &Path) -> Result<Vec<PathBuf>> {
 /// The forecast fan of one substation-day (see the module docs).
 ///
 /// # Errors
-/// [`Error::InvalidArgument`] for a size below [`crate::plot::MIN_SIZE`] or inconsistent
-/// lengths; [`Error::Io`] if drawing fails.
+/// [`Error::InvalidArgument`] for a size below [`crate::plot::MIN_SIZE`], inconsistent
+/// lengths, or values beyond ±[`crate::plot::PLOT_LIMIT`]; [`Error::Io`] if drawing fails.
 pub fn plot_fan(fan: &Fan, file: &Path, width: u32, height: u32) -> Result<()> {
     check_size(width, height)?;
     let h = fan.hour_start.len();
@@ -95,7 +96,7 @@ pub fn plot_fan(fan: &Fan, file: &Path, width: u32, height: u32) -> Result<()> {
     let (lo, hi) = all.fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
         (a.min(v), b.max(v))
     });
-    let (lo, hi) = padded(lo, hi, 0.08);
+    let (lo, hi) = padded(lo, hi, 0.08)?;
     let io = io(file);
     let root = SVGBackend::new(file, (width, height)).into_drawing_area();
     root.fill(&WHITE).map_err(|e| io(e.to_string()))?;
@@ -327,8 +328,9 @@ pub fn plot_structure(report: &Report, file: &Path, width: u32, height: u32) -> 
 /// negative log-likelihood and edges of Λ against log10 λ_Λ.
 ///
 /// # Errors
-/// [`Error::InvalidArgument`] for a size below [`crate::plot::MIN_SIZE`], an empty grid or
-/// `chosen` out of range; [`Error::Io`] if drawing fails.
+/// [`Error::InvalidArgument`] for a size below [`crate::plot::MIN_SIZE`], an empty grid,
+/// `chosen` out of range, or values beyond ±[`crate::plot::PLOT_LIMIT`]; [`Error::Io`] if
+/// drawing fails.
 pub fn plot_validation(
     grid: &[CrfGridPoint],
     chosen: usize,
@@ -365,7 +367,7 @@ pub fn plot_validation(
     let (x_lo, x_hi) = xs.fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
         (a.min(v), b.max(v))
     });
-    let (x_lo, x_hi) = padded(x_lo, x_hi, 0.05);
+    let (x_lo, x_hi) = padded(x_lo, x_hi, 0.05)?;
     let io = io(file);
     let root = SVGBackend::new(file, (width, height)).into_drawing_area();
     root.fill(&WHITE).map_err(|e| io(e.to_string()))?;
@@ -395,7 +397,7 @@ pub fn plot_validation(
             hi = hi.max(true_edges as f64);
             lo = lo.min(0.0);
         }
-        let (lo, hi) = padded(lo, hi, 0.08);
+        let (lo, hi) = padded(lo, hi, 0.08)?;
         let mut chart = ChartBuilder::on(&area)
             .margin(12)
             .x_label_area_size(45)
