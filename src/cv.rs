@@ -172,24 +172,55 @@ pub struct CvResult {
 
 impl CvResult {
     /// λ with the minimum mean score.
-    pub fn lambda_best(&self) -> f64 {
-        self.lambdas[self.best]
+    ///
+    /// # Errors
+    /// [`Error::InvalidArgument`] when `best` is not an index of `lambdas` (only a
+    /// hand-built or edited result can be so).
+    pub fn lambda_best(&self) -> Result<f64> {
+        self.lambda_at(self.best, "best")
     }
+
     /// The largest λ within one standard error of the minimum.
-    pub fn lambda_one_se(&self) -> f64 {
-        self.lambdas[self.one_se]
+    ///
+    /// # Errors
+    /// As [`Self::lambda_best`], for `one_se`.
+    pub fn lambda_one_se(&self) -> Result<f64> {
+        self.lambda_at(self.one_se, "one_se")
+    }
+
+    fn lambda_at(&self, index: usize, field: &str) -> Result<f64> {
+        self.lambdas.get(index).copied().ok_or_else(|| {
+            Error::InvalidArgument(format!(
+                "cross-validation result: {field} = {index} is outside its {} λ values",
+                self.lambdas.len()
+            ))
+        })
     }
 }
 
-/// Deterministic fold assignment: a seeded shuffle dealt round-robin into K folds.
-pub fn assign_folds(n: usize, k: usize, seed: u64) -> Vec<usize> {
-    let mut order: Vec<usize> = (0..n).collect();
-    order.shuffle(&mut StdRng::seed_from_u64(seed));
-    let mut fold = vec![0; n];
-    for (pos, &i) in order.iter().enumerate() {
-        fold[i] = pos % k.max(1);
+/// Deterministic fold assignment of n rows: a seeded shuffle dealt round-robin into K
+/// folds, so fold sizes differ by at most one.
+///
+/// # Errors
+/// [`Error::Empty`] for n = 0; [`Error::InvalidArgument`] for K = 0, K > n (a fold would be
+/// empty) or an n too large to allocate.
+pub fn assign_folds(n: usize, k: usize, seed: u64) -> Result<Vec<usize>> {
+    if n == 0 {
+        return Err(Error::Empty("rows to assign to folds".into()));
     }
-    fold
+    if k == 0 || k > n {
+        return Err(Error::InvalidArgument(format!(
+            "the number of folds must be between 1 and n = {n}, got {k}"
+        )));
+    }
+    let mut order: Vec<usize> = crate::error::filled(n, "a fold assignment")?;
+    order.iter_mut().enumerate().for_each(|(i, o)| *o = i);
+    order.shuffle(&mut StdRng::seed_from_u64(seed));
+    let mut fold = crate::error::filled(n, "a fold assignment")?;
+    for (pos, &i) in order.iter().enumerate() {
+        fold[i] = pos % k;
+    }
+    Ok(fold)
 }
 
 /// K-fold cross-validation of `loss + penalty` over a λ grid (the penalty's λ is ignored).
@@ -223,7 +254,7 @@ pub fn cross_validate(
             log_grid(lmax, ratio, opts.path.n_lambdas)?
         }
     };
-    let fold_of_row = assign_folds(n, k, opts.seed);
+    let fold_of_row = assign_folds(n, k, opts.seed)?;
     let path_opts = PathOptions {
         lambdas: Some(lambdas.clone()),
         duality_gaps: false,
@@ -242,7 +273,7 @@ pub fn cross_validate(
         // per λ: the scores
         path.points
             .iter()
-            .map(|p| loss.held_out(&test, &p.x.to_dense()))
+            .map(|p| loss.held_out(&test, &p.x.to_dense()?))
             .collect::<Result<Vec<_>>>()
     };
     let per_fold: Vec<Vec<Vec<f64>>> = if opts.parallel {

@@ -135,6 +135,20 @@ pub(crate) fn check_rows(rows: &[usize], n: usize) -> Result<()> {
     }
 }
 
+/// A vector of `len` default values (zeros), or an error instead of an abort when `len`
+/// values cannot be allocated (a length from a hand-built or deserialised value).
+///
+/// # Errors
+/// [`Error::InvalidArgument`] naming `what` when the allocation fails.
+pub(crate) fn filled<T: Clone + Default>(len: usize, what: &str) -> Result<Vec<T>> {
+    let mut v = Vec::new();
+    v.try_reserve_exact(len).map_err(|_| {
+        Error::InvalidArgument(format!("{what} of length {len} cannot be allocated"))
+    })?;
+    v.resize(len, T::default());
+    Ok(v)
+}
+
 /// Checks that a regularisation parameter is finite and non-negative.
 pub(crate) fn check_lambda(name: &str, value: f64) -> Result<()> {
     if value.is_finite() && value >= 0.0 {

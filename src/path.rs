@@ -53,12 +53,30 @@ impl SparseVec {
     }
 
     /// The dense vector.
-    pub fn to_dense(&self) -> Vec<f64> {
-        let mut x = vec![0.0; self.len];
+    ///
+    /// # Errors
+    /// For fields that disagree (as a hand-built or deserialised value may):
+    /// [`Error::ShapeMismatch`] when `indices` and `values` differ in length,
+    /// [`Error::InvalidArgument`] for an index ≥ `len` or a `len` that cannot be allocated.
+    pub fn to_dense(&self) -> Result<Vec<f64>> {
+        if self.indices.len() != self.values.len() {
+            return Err(Error::ShapeMismatch {
+                what: "values of a sparse vector vs its indices".into(),
+                expected: self.indices.len().to_string(),
+                found: self.values.len().to_string(),
+            });
+        }
+        if let Some(&i) = self.indices.iter().find(|&&i| i >= self.len) {
+            return Err(Error::InvalidArgument(format!(
+                "sparse-vector index {i} is out of range 0..{}",
+                self.len
+            )));
+        }
+        let mut x = crate::error::filled(self.len, "a dense vector")?;
         for (&i, &v) in self.indices.iter().zip(&self.values) {
             x[i] = v;
         }
-        x
+        Ok(x)
     }
 }
 

@@ -25,12 +25,73 @@ fn sparse_truth(n: usize, p: usize, seed: u64) -> (Array2<f64>, Vec<f64>, Vec<us
 
 #[test]
 fn folds_are_balanced_and_reproducible() {
-    let a = assign_folds(103, 5, 42);
-    assert_eq!(a, assign_folds(103, 5, 42));
+    let a = assign_folds(103, 5, 42).unwrap();
+    assert_eq!(a, assign_folds(103, 5, 42).unwrap());
     for f in 0..5 {
         let c = a.iter().filter(|&&v| v == f).count();
         assert!(c == 20 || c == 21);
     }
+}
+
+/// Inputs a caller can build by hand: fold counts outside 1..=n, a length that cannot be
+/// allocated, a result whose indices were edited, and a sparse vector whose fields
+/// disagree are typed errors, not panics or aborts.
+#[test]
+fn bad_fold_counts_and_edited_results_are_errors() {
+    use ellone::path::SparseVec;
+    use ellone::Error;
+    assert!(matches!(assign_folds(0, 2, 1), Err(Error::Empty(_))));
+    assert!(matches!(
+        assign_folds(10, 0, 1),
+        Err(Error::InvalidArgument(_))
+    ));
+    assert!(matches!(
+        assign_folds(10, 11, 1),
+        Err(Error::InvalidArgument(_))
+    ));
+    assert!(matches!(
+        assign_folds(usize::MAX, 2, 1),
+        Err(Error::InvalidArgument(_))
+    ));
+    assert_eq!(assign_folds(3, 3, 7).unwrap().iter().sum::<usize>(), 3);
+
+    let (x, y, _) = sparse_truth(60, 25, 5);
+    let loss = LeastSquares::from_dense(x.view(), &y, true).unwrap();
+    let opts = CvOptions {
+        folds: 3,
+        path: PathOptions {
+            n_lambdas: 5,
+            ..Default::default()
+        },
+        ..Default::default()
+    };
+    let mut cv = cross_validate(&loss, &Penalty::l1(1.0).unwrap(), &opts).unwrap();
+    assert_eq!(cv.lambda_best().unwrap(), cv.lambdas[cv.best]);
+    cv.best = cv.lambdas.len();
+    assert!(matches!(cv.lambda_best(), Err(Error::InvalidArgument(_))));
+    cv.lambdas.clear();
+    assert!(cv.lambda_one_se().is_err());
+
+    let good = SparseVec::from_dense(&[0.0, 2.0, 0.0, -1.0]);
+    assert_eq!(good.to_dense().unwrap(), vec![0.0, 2.0, 0.0, -1.0]);
+    let mut out_of_range = good.clone();
+    out_of_range.indices[1] = 4;
+    assert!(matches!(
+        out_of_range.to_dense(),
+        Err(Error::InvalidArgument(_))
+    ));
+    let mut ragged = good.clone();
+    ragged.values.pop();
+    assert!(matches!(
+        ragged.to_dense(),
+        Err(Error::ShapeMismatch { .. })
+    ));
+    let huge = SparseVec {
+        len: usize::MAX,
+        indices: vec![],
+        values: vec![],
+    };
+    assert!(huge.to_dense().is_err());
 }
 
 /// With a strong signal (|b_j| ≥ 1 against noise sd 0.5, n = 200, p = 40) the support at
@@ -52,12 +113,12 @@ fn cv_recovers_sparse_support() {
     };
     let cv = cross_validate(&loss, &Penalty::l1(1.0).unwrap(), &opts).unwrap();
     assert!(cv.one_se <= cv.best);
-    assert!(cv.lambda_one_se() >= cv.lambda_best());
+    assert!(cv.lambda_one_se().unwrap() >= cv.lambda_best().unwrap());
     // Refit on all data at the 1-SE λ.
     let sol = ellone::Solver::solve(
         &ellone::NewtonCd::default(),
         &loss,
-        &Penalty::l1(cv.lambda_one_se()).unwrap(),
+        &Penalty::l1(cv.lambda_one_se().unwrap()).unwrap(),
     )
     .unwrap();
     let (b, _) = loss.split(&sol.x);
@@ -200,7 +261,7 @@ fn logistic_cv_recovers_sparse_support() {
     let sol = ellone::Solver::solve(
         &ellone::NewtonCd::default(),
         &loss,
-        &Penalty::l1(cv.lambda_one_se()).unwrap(),
+        &Penalty::l1(cv.lambda_one_se().unwrap()).unwrap(),
     )
     .unwrap();
     let (b, _) = loss.split(&sol.x);
@@ -317,7 +378,7 @@ fn precision_cv_finds_the_chain() {
     assert!(cv.mean[cv.best] < cv.mean[0]);
     let fit = ellone::precision::estimate_precision(
         ellone::precision::PrecisionInput::Data(x.view()),
-        cv.lambda_best(),
+        cv.lambda_best().unwrap(),
         &Default::default(),
     )
     .unwrap();
@@ -432,7 +493,7 @@ fn crf_cv_finds_the_true_interactions() {
     let sol = ellone::Solver::solve(
         &ellone::NewtonCd::default(),
         &problem,
-        &Penalty::l1(cv.lambda_best()).unwrap(),
+        &Penalty::l1(cv.lambda_best().unwrap()).unwrap(),
     )
     .unwrap();
     let est = problem.crf_loss().interaction_of(&sol.x).unwrap();

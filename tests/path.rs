@@ -158,7 +158,7 @@ fn precision_path_matches_reference_objectives() {
     let block_of = |v: usize| blocks.iter().position(|b| b.contains(&v)).unwrap();
     let theta = loss
         .log_det()
-        .to_matrix(&path.points[0].x.to_dense())
+        .to_matrix(&path.points[0].x.to_dense().unwrap())
         .unwrap();
     for (k, &zero) in mask.iter().enumerate() {
         let (i, j) = loss.log_det().entry(k).unwrap();

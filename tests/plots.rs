@@ -204,8 +204,8 @@ fn cv_plot_is_well_formed_and_marks_both_choices() {
     ] {
         assert!(text.contains(label), "missing label {label}");
     }
-    assert!(text.contains(&format!("λ_min = {:.3e}", cv.lambda_best())));
-    assert!(text.contains(&format!("λ_1se = {:.3e}", cv.lambda_one_se())));
+    assert!(text.contains(&format!("λ_min = {:.3e}", cv.lambda_best().unwrap())));
+    assert!(text.contains(&format!("λ_1se = {:.3e}", cv.lambda_one_se().unwrap())));
     // One marker per λ (plus the legend's sample).
     assert_eq!(text.matches("<circle").count(), cv.lambdas.len() + 1);
     if let Some(png) = render_png(&file) {

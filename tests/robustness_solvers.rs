@@ -209,7 +209,7 @@ proptest! {
                     let pen = Penalty::l1(point.lambda).unwrap();
                     let sol = Solution {
                         solver: "path".into(),
-                        x: point.x.to_dense(),
+                        x: point.x.to_dense().unwrap(),
                         objective: point.objective,
                         kkt_residual: point.kkt_residual,
                         duality_gap: point.duality_gap,
@@ -260,7 +260,7 @@ proptest! {
             Ok(cv) => {
                 prop_assert!(!cv.lambdas.is_empty());
                 prop_assert!(cv.best < cv.lambdas.len() && cv.one_se < cv.lambdas.len());
-                prop_assert!(cv.lambda_best().is_finite() && cv.lambda_one_se().is_finite());
+                prop_assert!(cv.lambda_best().unwrap().is_finite() && cv.lambda_one_se().unwrap().is_finite());
                 prop_assert_eq!(cv.fold_of_row.len(), n);
             }
             Err(e) => check_error(&e),

@@ -110,8 +110,8 @@ pub fn plot_cv(cv: &CvResult, file: &Path, title: &str, width: u32, height: u32)
         .label(format!("{score}, mean over folds"))
         .legend(move |(x, y)| Circle::new((x + 10, y), 3, line.filled()));
     let markers = [
-        (cv.lambda_best(), "λ_min", PALETTE[1]),
-        (cv.lambda_one_se(), "λ_1se", PALETTE[2]),
+        (cv.lambda_best()?, "λ_min", PALETTE[1]),
+        (cv.lambda_one_se()?, "λ_1se", PALETTE[2]),
     ];
     for (lambda, name, color) in markers {
         if lambda.is_nan() || lambda <= 0.0 {

@@ -688,7 +688,7 @@ fn lasso_output(
     let yv = val.y.column(k);
     let mut best = (f64::INFINITY, 0usize);
     for (i, pt) in path.points.iter().enumerate() {
-        let x = pt.x.to_dense();
+        let x = pt.x.to_dense()?;
         let b = ArrayView1::from(&x[..p]);
         let pred = val.x.dot(&b);
         let mse = pred
@@ -701,7 +701,7 @@ fn lasso_output(
         }
     }
     let pt = &path.points[best.1];
-    let x = pt.x.to_dense();
+    let x = pt.x.to_dense()?;
     let b = x[..p].to_vec();
     let b0 = x[p];
     let fitted = train.x.dot(&ArrayView1::from(&b[..]));
