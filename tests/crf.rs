@@ -595,6 +595,22 @@ fn bad_input_is_a_typed_error() {
         fit(x.view(), yc.view(), &opts),
         Err(Error::Unbounded(_))
     ));
+    // Finite data at the edges of the double range: squares that underflow to zero are
+    // named as such; products that overflow are non-finite moments, not a fit on ∞.
+    let tiny = y.mapv(|v| v * 1e-200);
+    match fit(x.view(), tiny.view(), &opts) {
+        Err(Error::Unbounded(m)) => assert!(m.contains("underflow"), "{m}"),
+        other => panic!("expected Unbounded, got {other:?}"),
+    }
+    let huge = y.mapv(|v| v * 1e200);
+    assert!(matches!(
+        fit(x.view(), huge.view(), &opts),
+        Err(Error::NonFinite { .. })
+    ));
+    assert!(matches!(
+        fit(x.mapv(|v| v * 1e200).view(), y.view(), &opts),
+        Err(Error::NonFinite { .. })
+    ));
     let fitted = fit(x.view(), y.view(), &opts).unwrap();
     let wrong = Array2::<f64>::zeros((2, 4));
     assert!(matches!(

@@ -114,13 +114,30 @@ fn apply_map(a: &mut Array2<f64>, map: &ColumnMap) {
     }
 }
 
+/// Checks that the sufficient statistics are finite (finite data beyond about 10¹⁵⁴
+/// overflow when multiplied); `width` is the row length of the flattened matrix, for the
+/// location.
+fn check_moments<'a>(
+    name: &str,
+    inputs: &str,
+    values: impl IntoIterator<Item = &'a f64>,
+    width: usize,
+) -> Result<()> {
+    crate::error::check_finite(
+        &format!("{name} (products of {inputs} overflow: rescale the data)"),
+        values,
+        |k| format!("entry ({}, {})", k / width, k % width),
+    )
+}
+
 impl CrfData {
     /// Validates X (n×p) and Y (n×q), applies the optional centring/scaling and computes
     /// the sufficient statistics.
     ///
     /// # Errors
     /// [`Error::Empty`] if n, p or q is 0; [`Error::ShapeMismatch`] if the row counts
-    /// differ; [`Error::NonFinite`] for NaN/Inf; [`Error::Unbounded`] if an output column
+    /// differ; [`Error::NonFinite`] for NaN/Inf, in the data or in the second moments
+    /// (data beyond about 10¹⁵⁴ overflow); [`Error::Unbounded`] if an output column
     /// has zero second moment (after centring), since then −log det Λ + tr(S_yy Λ) has no
     /// minimiser.
     pub fn new(
@@ -160,11 +177,20 @@ impl CrfData {
         let mut syy = gemm(ys.t(), ys.view());
         syy.mapv_inplace(|v| v / nf);
         // Exact symmetry (the GEMM may round the two triangles differently).
+        check_moments("S_yy = YᵀY/n", "Y", syy.iter(), q)?;
         for i in 0..q {
             if syy[[i, i]] <= 0.0 {
+                // All zeros, or squares below the smallest double.
+                let underflow = ys.column(i).iter().any(|&v| v != 0.0);
                 return Err(Error::Unbounded(format!(
                     "output column {i} has zero second moment{}",
-                    if center { " after centring" } else { "" }
+                    if underflow {
+                        " (its squares underflow: rescale Y)"
+                    } else if center {
+                        " after centring"
+                    } else {
+                        ""
+                    }
                 )));
             }
             for j in 0..i {
@@ -175,10 +201,12 @@ impl CrfData {
         }
         let mut sxy = gemm(xs.t(), ys.view());
         sxy.mapv_inplace(|v| v / nf);
+        check_moments("S_xy = XᵀY/n", "X and Y", sxy.iter(), q)?;
         let sxy = sxy.into_raw_vec_and_offset().0;
         let sxx_diag: Vec<f64> = (0..p)
             .map(|i| xs.column(i).iter().map(|v| v * v).sum::<f64>() / nf)
             .collect();
+        check_moments("diag(XᵀX)/n", "X", sxx_diag.iter(), 1)?;
         let use_gram = match mode {
             InputMode::Gram => true,
             InputMode::Data => false,
