@@ -49,7 +49,8 @@ pub fn plot_race(result: &RaceResult, path: &Path, width: u32, height: u32) -> R
                     let s = result.relative_suboptimality(r.objective);
                     (r.seconds, s.max(DISPLAY_FLOOR))
                 })
-                .filter(|(t, s)| t.is_finite() && s.is_finite())
+                // Times are ≥ 0 (the axis starts at the solve's start).
+                .filter(|(t, s)| t.is_finite() && *t >= 0.0 && s.is_finite())
                 .collect();
             (e.solver.clone(), pts)
         })

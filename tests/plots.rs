@@ -274,5 +274,51 @@ fn extreme_values_are_errors_and_tiny_spans_still_draw() {
     flat.std_error.iter_mut().for_each(|s| *s = 0.0);
     plot_cv(&flat, &file, "t", 400, 300).unwrap();
     assert_well_formed(&std::fs::read_to_string(&file).unwrap());
+    // A chosen λ whose score is not finite lies outside the drawn range: no marker (its
+    // pixel position used to overflow), the rest is drawn.
+    let mut off = cv.clone();
+    off.lambdas[off.best] = 1e-300;
+    off.mean[off.best] = f64::NAN;
+    plot_cv(&off, &file, "t", 400, 300).unwrap();
+    assert!(!std::fs::read_to_string(&file).unwrap().contains("λ_min"));
+
+    // A race record at a negative time is left out; a fan hour outside the clock day is
+    // an error.
+    use ellone::race::{RaceEntry, RaceResult};
+    use ellone::solver::{Status, TraceRecord};
+    let record = |objective: f64, seconds: f64| TraceRecord {
+        iteration: 0,
+        seconds,
+        objective,
+        kkt_residual: 1.0,
+        duality_gap: None,
+        nnz: 1,
+        inner: 1,
+    };
+    let race = RaceResult {
+        entries: vec![RaceEntry {
+            solver: "a".into(),
+            records: vec![record(2.0, -1e300), record(1.5, 0.5), record(1.0, 1.0)],
+            status: Status::Converged,
+            objective: 1.0,
+            seconds: 1.0,
+        }],
+        reference: None,
+        best_objective: 1.0,
+        target: 1e-6,
+    };
+    ellone::race_plot::plot_race(&race, &file, 400, 300).unwrap();
+    let fan = ellone::scenario::pipeline::Fan {
+        substation: 0,
+        day_of_year: 1,
+        hour_start: vec![0.0, 12.0, 30.0],
+        actual: vec![1.0; 3],
+        mean: vec![1.0; 3],
+        quantiles: vec![vec![1.0; 3]; 5],
+        scenarios: vec![],
+        lasso_band: vec![vec![1.0; 3]; 2],
+    };
+    let err = ellone::scenario::figures::plot_fan(&fan, &file, 400, 300).unwrap_err();
+    assert!(err.to_string().contains("clock day"), "{err}");
     let _ = std::fs::remove_file(&file);
 }

@@ -114,10 +114,12 @@ pub fn plot_cv(cv: &CvResult, file: &Path, title: &str, width: u32, height: u32)
         (cv.lambda_one_se()?, "λ_1se", PALETTE[2]),
     ];
     for (lambda, name, color) in markers {
-        if lambda.is_nan() || lambda <= 0.0 {
+        let x = lambda.log10();
+        // λ ≤ 0 has no place on the axis; a λ whose score was not finite (left out of the
+        // points) may lie outside the drawn range.
+        if !(x_lo..=x_hi).contains(&x) {
             continue;
         }
-        let x = lambda.log10();
         chart
             .draw_series(DashedLineSeries::new(
                 vec![(x, y_lo), (x, y_hi)],

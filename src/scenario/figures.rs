@@ -66,7 +66,8 @@ pub fn write_figures(report: &Report, dir: &Path) -> Result<Vec<PathBuf>> {
 ///
 /// # Errors
 /// [`Error::InvalidArgument`] for a size below [`crate::plot::MIN_SIZE`], inconsistent
-/// lengths, or values beyond ±[`crate::plot::PLOT_LIMIT`]; [`Error::Io`] if drawing fails.
+/// lengths, an hour outside [0, 24), or values beyond ±[`crate::plot::PLOT_LIMIT`];
+/// [`Error::Io`] if drawing fails.
 pub fn plot_fan(fan: &Fan, file: &Path, width: u32, height: u32) -> Result<()> {
     check_size(width, height)?;
     let h = fan.hour_start.len();
@@ -78,6 +79,13 @@ pub fn plot_fan(fan: &Fan, file: &Path, width: u32, height: u32) -> Result<()> {
         && fan.scenarios.iter().all(|v| v.len() == h)
         && fan.lasso_band.len() == 2
         && fan.lasso_band.iter().all(|v| v.len() == h);
+    // The x axis is the clock day [0, 24]: an hour outside it would be drawn far off the
+    // chart (and overflow the drawing library's pixel arithmetic).
+    if let Some(t) = fan.hour_start.iter().find(|t| !(0.0..24.0).contains(*t)) {
+        return Err(Error::InvalidArgument(format!(
+            "fan hour {t} is outside the clock day [0, 24)"
+        )));
+    }
     if !ok {
         return Err(Error::InvalidArgument(
             "fan data with inconsistent lengths".into(),
