@@ -47,7 +47,13 @@
 //! S, as with p > n data, is the typical case). With λ_ij > 0 for every pair and S positive
 //! semidefinite with a positive diagonal the problem always has a solution: U = −t·offdiag(S)
 //! with t = min(1, min λ_ij/|S_ij|) > 0 is dual feasible and S + U = (1 − t)S + t·diag(S) ≻ 0.
-//! (A block mixing zero and positive weights is not pre-checked.)
+//! A block mixing zero and positive weights is checked after its solve instead (deciding
+//! boundedness beforehand is a semidefinite feasibility problem): it is unbounded exactly
+//! when some D ⪰ 0, D ≠ 0, with SD = 0 has its off-diagonal entries only where the weight
+//! is 0; along Θ + t·D the gradient vanishes like 1/t, so the KKT residual alone would
+//! report convergence far out on the ray. There the dual candidate of the duality gap is
+//! not positive definite, and a fit in such a block that stops as converged or with a failed
+//! line search, without a duality gap, is returned as [`Error::Unbounded`].
 
 use crate::error::{check_lambda, Error, Result};
 use crate::linalg;
@@ -468,6 +474,28 @@ fn solve_block(pr: &Problem<'_>, idx: &[usize]) -> Result<BlockFit> {
             )),
             e => e,
         })?;
+    // A block mixing zero and positive off-diagonal weights was not pre-checked: on a
+    // singular S it can be unbounded below along a ray Θ + t·D (D ⪰ 0 with SD = 0, seen only
+    // by zero-weight entries and the unpenalised diagonal), where ∇f → 0 like 1/t, so the
+    // KKT test alone "converges" far out on the ray. The dual candidate S + clip(Θ⁻¹ − S)
+    // differs from Θ⁻¹ by the KKT residual on the zero-weight entries, so for a bounded
+    // problem it is positive definite near the solution and the gap exists; on such a ray
+    // Θ⁻¹ tends to a singular matrix and no gap can be formed. A fit that stopped there as
+    // converged, or because no step decreased F any more (at the rounding level of F, which
+    // a bounded problem reaches only next to its solution, where the gap exists), is
+    // reported as unbounded.
+    let mixed = !all_unpenalised && (0..b).any(|a| (0..a).any(|c| pr.level(idx[a], idx[c]) == 0.0));
+    let stalled = matches!(sol.status, Status::Converged | Status::LineSearchFailed);
+    if mixed && stalled && sol.duality_gap.is_none() {
+        let largest = sol.x.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        return Err(Error::Unbounded(format!(
+            "the block of {b} variables starting at {} mixes zero and positive weights and \
+             its fit diverges (|Θ| reached {largest:.3e}; no dual certificate exists there): \
+             S is singular along a direction that only zero-weight entries and the \
+             unpenalised diagonal see",
+            idx[0]
+        )));
+    }
     let theta = loss.to_matrix(&sol.x)?;
     let w = loss.inverse_at(&sol.x)?;
     Ok(BlockFit {
@@ -504,8 +532,9 @@ fn solve_block(pr: &Problem<'_>, idx: &[usize]) -> Result<BlockFit> {
 /// [`check_semidefinite`]), [`Error::InvalidLambda`] (λ or a
 /// weight negative or not finite), [`Error::InvalidArgument`] (a warm start that is not
 /// positive definite, bad solver options, a zero-variance variable with `standardise`);
-/// [`Error::Unbounded`] when the problem has no minimiser (λ = 0 with a singular S, or a
-/// zero-variance variable with an unpenalised diagonal).
+/// [`Error::Unbounded`] when the problem has no minimiser (λ = 0 with a singular S, a
+/// zero-variance variable with an unpenalised diagonal, or zero weights that leave a null
+/// direction of a singular S unpenalised; see the module docs).
 pub fn estimate_precision(
     input: PrecisionInput<'_>,
     lambda: f64,

@@ -390,6 +390,35 @@ fn bad_input_is_rejected_with_typed_errors() {
     assert!((fit.precision[[3, 3]] - 10.0).abs() < 1e-12);
 }
 
+/// Zero weights on a singular S. Variables 0 and 1 are identical (S v = 0 for
+/// v = (1, −1, 0)), so along Θ + t·vvᵀ the trace term is constant and −log det falls like
+/// −log t: with w_01 = 0 nothing penalises that ray and the problem is unbounded below
+/// (the recession-direction argument of "Convex Optimization", Cambridge University Press,
+/// 2004, §3.1 and §5.2). The fit used to stop there as `Converged` (its gradient vanishes
+/// like 1/t) with Θ ≈ 6·10⁶; it is now `Unbounded`. With w_01 > 0 and another weight 0 the
+/// ray is penalised, the problem is bounded, and the fit carries a duality gap.
+#[test]
+fn zero_weights_on_a_singular_covariance() {
+    let s = ndarray::array![[1.0, 1.0, 0.3], [1.0, 1.0, 0.3], [0.3, 0.3, 1.0]];
+    let with = |w: Array2<f64>| PrecisionOptions {
+        weights: Some(w),
+        ..tight()
+    };
+    let unbounded = ndarray::array![[1.0, 0.0, 1.0], [0.0, 1.0, 1.0], [1.0, 1.0, 1.0]];
+    assert!(matches!(
+        estimate_precision(PrecisionInput::Covariance(s.view()), 0.1, &with(unbounded)),
+        Err(Error::Unbounded(_))
+    ));
+    let bounded = ndarray::array![[1.0, 1.0, 0.0], [1.0, 1.0, 1.0], [0.0, 1.0, 1.0]];
+    let fit = solve_cov(&s, 0.1, &with(bounded));
+    assert_eq!(fit.status, Status::Converged);
+    let gap = fit
+        .duality_gap
+        .expect("a bounded problem has a dual certificate");
+    assert!((0.0..1e-6).contains(&gap), "gap {gap}");
+    assert!(max_abs(&fit.precision) < 1e3);
+}
+
 /// Weights: λ·w_ij with every w_ij = 2 at λ = 0.05 is the problem at λ = 0.1 (diagonal
 /// unpenalised), so it must reproduce the λ = 0.1 fixture. A warm start from the λ = 0.1
 /// fixture solution reproduces the λ = 0.05 fixture.
