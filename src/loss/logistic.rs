@@ -16,6 +16,15 @@
 //! over u ∈ \[0, 1\]ⁿ with |x_jᵀ(y − u)|/n ≤ λ_j (and Σ_i (y_i − u_i) = 0 with an intercept);
 //! u* = π*. From an iterate, u = y − s·ρ̃ with ρ = y − π (centred when there is an
 //! intercept) and s ∈ \[0, 1\] the largest scaling that keeps u feasible.
+//!
+//! **Separable labels.** When the unpenalised coordinates alone can separate the labels
+//! (λ = 0 on linearly separable data, or every label equal with an intercept) f has
+//! infimum 0 but no minimiser: the coefficients along the separating direction grow
+//! without bound. The solvers then stop at a point whose KKT residual (and duality gap,
+//! where defined) meet the tolerance, so its objective is within the tolerance of the
+//! infimum, but those coefficients only reflect how far the tolerance let them grow
+//! (an intercept of about 16 at the default tolerance): read them as "±∞", not as
+//! estimates. A penalty on every coefficient (λ > 0) restores a minimiser.
 
 use super::glm::LinearData;
 use super::point_memo::PointMemo;
