@@ -18,6 +18,13 @@
 //! gradient of the matrix function is S − W), hence [`Loss::residual_scale`] ½ there. The
 //! diagonal is unpenalised (factor 0) unless asked for (factor 1).
 //!
+//! Used directly with a solver, this loss does not check boundedness: with a singular S
+//! and weights that leave a null direction of S unpenalised (λ = 0, or zero weights on the
+//! pairs it needs) the objective falls without bound along a ray on which the gradient
+//! vanishes, and the KKT test alone can report convergence there; such a point has no
+//! duality gap (`duality_gap` is `None`). [`crate::precision::estimate_precision`] checks
+//! this and returns [`crate::Error::Unbounded`].
+//!
 //! # The fast local model
 //!
 //! One Cholesky factorisation Θ = LLᵀ and one inverse W = Θ⁻¹ per outer iteration. The
