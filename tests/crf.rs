@@ -231,6 +231,58 @@ fn unpenalised_fit_is_multivariate_least_squares() {
     }
 }
 
+// Outside reference: least squares with at least as many inputs as samples (X of full row
+// rank) interpolates, Y = XB exactly (textbook linear algebra), so with λ_Θ = 0 the residual
+// covariance is 0 and −log det Λ + tr(S_res Λ) has no minimiser. `fit` used to report such a
+// fit as converged (Λ_kk ≈ 10⁶ on a 6 × 10 example); it is now `Unbounded`, for both input
+// modes and on both sides of the Gram computation (p ≤ n and n < p). The same holds with
+// λ_Λ = 0 and fewer samples than outputs (a singular S_yy). With more samples than inputs
+// the problem is bounded and `fit` gives the least-squares closed form.
+#[test]
+fn unbounded_crf_problems_are_refused() {
+    for (n, p) in [(6, 10), (10, 10), (6, 200)] {
+        let (x, y) = crf_data(n, p, 3, 5);
+        for mode in [InputMode::Gram, InputMode::Data] {
+            for lambda_precision in [0.1, 0.0] {
+                let mut opts = CrfOptions::new(lambda_precision, 0.0);
+                opts.input_mode = mode;
+                match fit(x.view(), y.view(), &opts) {
+                    Err(Error::Unbounded(_)) => {}
+                    other => panic!("n {n} p {p} {mode:?}: {:?}", other.map(|f| f.solution)),
+                }
+            }
+            // A penalised Θ keeps the problem bounded.
+            let mut opts = CrfOptions::new(0.1, 0.1);
+            opts.input_mode = mode;
+            assert!(fit(x.view(), y.view(), &opts).unwrap().solution.converged());
+        }
+    }
+    // Fewer samples than outputs: S_yy is singular, and with λ_Λ = 0 the fit diverges
+    // along its null space even with a penalised Θ (Θ = 0 is free).
+    let (x, y) = crf_data(4, 2, 6, 8);
+    assert!(matches!(
+        fit(x.view(), y.view(), &CrfOptions::new(0.0, 0.1)),
+        Err(Error::Unbounded(_))
+    ));
+    assert!(fit(x.view(), y.view(), &CrfOptions::new(0.1, 0.1))
+        .unwrap()
+        .solution
+        .converged());
+    let (n, p) = (40, 10);
+    let (x, y) = crf_data(n, p, 3, 6);
+    for mode in [InputMode::Gram, InputMode::Data] {
+        let mut opts = CrfOptions::new(0.0, 0.0);
+        opts.input_mode = mode;
+        opts.solver.tol = 1e-10;
+        let fitted = fit(x.view(), y.view(), &opts).unwrap();
+        let b = gj_inverse(&x.t().dot(&x)).dot(&x.t().dot(&y));
+        let resid = &y - &x.dot(&b);
+        let cov = resid.t().dot(&resid) / n as f64;
+        let d = max_abs_diff(&fitted.model.covariance().to_owned(), &cov);
+        assert!(d < 1e-8, "{mode:?}: {d}");
+    }
+}
+
 /// Standardised macrodata (sd divides by n), whose S_yy is tests/data/macrodata-corr.csv.
 fn macro_outputs() -> Array2<f64> {
     let (_, mut a) = common::read_numeric_table("macrodata.csv");

@@ -105,7 +105,9 @@ pub struct CrfFit {
 ///
 /// # Errors
 /// [`crate::Error::InvalidLambda`] for a negative or non-finite λ; the data errors of
-/// [`CrfData::new`] (row-count mismatch, NaN/Inf, q = 0, ...); invalid solver options.
+/// [`CrfData::new`] (row-count mismatch, NaN/Inf, q = 0, ...); invalid solver options;
+/// [`crate::Error::Unbounded`] when no minimiser exists (e.g. λ_Θ = 0 with n ≤ p; see
+/// [`CrfLoss::new`]).
 /// Non-convergence is not an error: see `solution.status`.
 pub fn fit(x: ArrayView2<f64>, y: ArrayView2<f64>, options: &CrfOptions) -> Result<CrfFit> {
     fit_observed(x, y, options, None)

@@ -77,10 +77,15 @@ impl CrfLoss {
     /// The CRF loss on `data` with penalty levels λ_Λ (off-diagonal of Λ) and λ_Θ.
     ///
     /// # Errors
-    /// [`Error::InvalidLambda`] if either level is negative or not finite.
+    /// [`Error::InvalidLambda`] if either level is negative or not finite;
+    /// [`Error::Unbounded`] when the objective has no minimiser for these levels (λ_Θ = 0 with
+    /// an output the inputs fit exactly, e.g. n ≤ p; λ_Λ = 0 with a singular S_yy or residual
+    /// covariance; see [`super::bounded`]). The check reads which levels are zero: solving
+    /// with a penalty whose λ is 0 (both levels then vanish) is not covered.
     pub fn new(data: CrfData, lambda_precision: f64, lambda_interaction: f64) -> Result<Self> {
         check_lambda("lambda", lambda_precision)?;
         check_lambda("lambda_theta", lambda_interaction)?;
+        super::bounded::check_bounded(&data, lambda_precision, lambda_interaction)?;
         let q = data.q;
         let nl = q * (q + 1) / 2;
         let mut pairs = Vec::with_capacity(nl);

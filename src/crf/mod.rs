@@ -15,6 +15,8 @@
 //!
 //! * [`data`]: validation, centring/scaling, sufficient statistics; S_xx only when p is
 //!   small, otherwise products go through X.
+//! * [`bounded`]: whether the objective has a minimiser when λ_Θ or λ_Λ is 0 (checked by
+//!   [`CrfLoss::new`]).
 //! * [`loss`]: the loss over `[upper triangle of Λ, Θ]` for the generic solvers.
 //! * `local`: the fast local model (O(q) / O(|R| + q) per coordinate).
 //! * `gram_cache`: the Gram block S_xx[R, R] kept from one local model to the next.
@@ -24,6 +26,7 @@
 //! * [`scores`]: energy score and CRPS.
 
 pub mod alternating;
+pub mod bounded;
 pub mod data;
 pub mod fit;
 mod gram_cache;

@@ -428,6 +428,7 @@ fn solve_crf(args: &Args, options: SolverOptions) -> CliResult<Report> {
         ellone::Error::InvalidLambda { ref name, .. } if name == "lambda_theta" => {
             CliError::from(e).context("--lambda-theta")
         }
+        unbounded @ ellone::Error::Unbounded(_) => CliError::from(unbounded),
         other => CliError::from(other).context("--lambda"),
     })?;
     // The loss carries both penalty levels in its structural factors (see ellone::crf), so
