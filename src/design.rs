@@ -361,14 +361,18 @@ impl Design {
         }
     }
 
-    /// A dense copy as an ndarray (column-major). Only for small matrices: tests, baselines
+    /// A dense copy as an ndarray (column-major). Meant for small matrices: tests, baselines
     /// that need a factorisation, reporting.
-    pub fn to_dense(&self) -> ndarray::Array2<f64> {
+    ///
+    /// # Errors
+    /// [`Error::InvalidArgument`] when n × p values cannot be allocated.
+    pub fn to_dense(&self) -> Result<ndarray::Array2<f64>> {
+        crate::error::check_allocation(self.n, self.p, "the dense copy of the design")?;
         let mut a = ndarray::Array2::<f64>::zeros((self.n, self.p).f());
         for j in 0..self.p {
             self.for_each_in_col(j, |i, v| a[[i, j]] = v);
         }
-        a
+        Ok(a)
     }
 }
 
@@ -409,8 +413,8 @@ mod tests {
         assert_eq!(o1, o2);
         let rows = [3, 0, 0];
         assert_eq!(
-            dense.select_rows(&rows).unwrap().to_dense(),
-            sparse.select_rows(&rows).unwrap().to_dense()
+            dense.select_rows(&rows).unwrap().to_dense().unwrap(),
+            sparse.select_rows(&rows).unwrap().to_dense().unwrap()
         );
         for d in [&dense, &sparse] {
             assert!(matches!(d.select_rows(&[]), Err(Error::Empty(_))));

@@ -149,6 +149,26 @@ pub(crate) fn filled<T: Clone + Default>(len: usize, what: &str) -> Result<Vec<T
     Ok(v)
 }
 
+/// Checks that `rows × cols` doubles can be allocated: the count does not overflow and the
+/// allocator grants it (the memory is reserved and released at once). A size read from a
+/// file header, or a p × p matrix derived from a few rows of data, then becomes a typed
+/// error instead of an abort.
+///
+/// # Errors
+/// [`Error::InvalidArgument`] naming `what` and the size.
+pub(crate) fn check_allocation(rows: usize, cols: usize, what: &str) -> Result<()> {
+    let granted = rows
+        .checked_mul(cols)
+        .is_some_and(|count| Vec::<f64>::new().try_reserve_exact(count).is_ok());
+    if granted {
+        Ok(())
+    } else {
+        Err(Error::InvalidArgument(format!(
+            "{what} ({rows} × {cols} values) is too large to allocate"
+        )))
+    }
+}
+
 /// Checks that a regularisation parameter is finite and non-negative.
 pub(crate) fn check_lambda(name: &str, value: f64) -> Result<()> {
     if value.is_finite() && value >= 0.0 {
@@ -158,5 +178,26 @@ pub(crate) fn check_lambda(name: &str, value: f64) -> Result<()> {
             name: name.to_string(),
             value,
         })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Sizes whose element count overflows `usize`, or whose bytes exceed any 64-bit
+    /// address space in use (2⁵⁰ doubles = 8 PiB, beyond the 128 TiB or 64 PiB of
+    /// virtual memory of current processors), are refused without an abort; small ones pass.
+    #[test]
+    fn impossible_allocations_are_errors() {
+        assert!(check_allocation(10, 10, "m").is_ok());
+        assert!(check_allocation(0, usize::MAX, "m").is_ok());
+        for (r, c) in [(usize::MAX, 2), (1 << 40, 1 << 10), (1 << 32, 1 << 32)] {
+            match check_allocation(r, c, "m") {
+                Err(Error::InvalidArgument(m)) => assert!(m.contains("too large"), "{m}"),
+                other => panic!("{r} × {c}: {other:?}"),
+            }
+        }
+        assert!(filled::<f64>(usize::MAX, "v").is_err());
     }
 }

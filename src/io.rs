@@ -61,6 +61,23 @@ pub enum MatrixInput {
     Sparse(CsMat<f64>),
 }
 
+impl MatrixInput {
+    /// The matrix as a dense array (a sparse one is expanded).
+    ///
+    /// # Errors
+    /// [`Error::InvalidArgument`] when the dense array cannot be allocated (a Matrix Market
+    /// header may declare sizes far beyond its entries).
+    pub fn into_dense(self) -> Result<Array2<f64>> {
+        match self {
+            MatrixInput::Dense(a) => Ok(a),
+            MatrixInput::Sparse(m) => {
+                crate::error::check_allocation(m.rows(), m.cols(), "the dense form of the matrix")?;
+                Ok(m.to_dense())
+            }
+        }
+    }
+}
+
 // ---------------------------------------------------------------------------------------------
 // Shared helpers
 // ---------------------------------------------------------------------------------------------

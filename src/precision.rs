@@ -168,7 +168,8 @@ pub struct PrecisionFit {
 ///
 /// # Errors
 /// [`Error::Empty`] for no rows or columns, [`Error::NonFinite`] for NaN/Inf in the data or
-/// in S (values beyond about 10¹⁵⁴ overflow when squared: rescale such data).
+/// in S (values beyond about 10¹⁵⁴ overflow when squared: rescale such data),
+/// [`Error::InvalidArgument`] when the p × p result cannot be allocated.
 pub fn sample_covariance(x: ArrayView2<f64>, centre: bool) -> Result<Array2<f64>> {
     let (n, p) = x.dim();
     if n == 0 || p == 0 {
@@ -182,6 +183,7 @@ pub fn sample_covariance(x: ArrayView2<f64>, centre: bool) -> Result<Array2<f64>
             });
         }
     }
+    crate::error::check_allocation(p, p, "the sample covariance")?;
     let mut xc = x.to_owned();
     if centre {
         for mut col in xc.columns_mut() {

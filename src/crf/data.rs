@@ -137,7 +137,8 @@ impl CrfData {
     /// # Errors
     /// [`Error::Empty`] if n, p or q is 0; [`Error::ShapeMismatch`] if the row counts
     /// differ; [`Error::NonFinite`] for NaN/Inf, in the data or in the second moments
-    /// (data beyond about 10¹⁵⁴ overflow); [`Error::Unbounded`] if an output column
+    /// (data beyond about 10¹⁵⁴ overflow); [`Error::InvalidArgument`] if S_yy, S_xy (or
+    /// S_xx, with the Gram matrix) cannot be allocated; [`Error::Unbounded`] if an output column
     /// has zero second moment (after centring), since then −log det Λ + tr(S_yy Λ) has no
     /// minimiser.
     pub fn new(
@@ -167,6 +168,10 @@ impl CrfData {
         }
         check_matrix("x", &x)?;
         check_matrix("y", &y)?;
+        // The statistics below are q × q and p × q (and p × p with the Gram matrix): sizes
+        // that a few rows of very wide data make impossible to allocate.
+        crate::error::check_allocation(q, q, "S_yy (outputs × outputs)")?;
+        crate::error::check_allocation(p, q, "S_xy (inputs × outputs)")?;
         let mut xs = x.as_standard_layout().into_owned();
         let mut ys = y.as_standard_layout().into_owned();
         let x_map = column_map(&xs, center, standardize);
@@ -213,6 +218,7 @@ impl CrfData {
             InputMode::Auto => p <= GRAM_MAX_INPUTS,
         };
         let inputs = if use_gram {
+            crate::error::check_allocation(p, p, "S_xx (inputs × inputs)")?;
             let mut sxx = gemm(xs.t(), xs.view());
             sxx.mapv_inplace(|v| v / nf);
             for i in 0..p {

@@ -148,7 +148,7 @@ impl GramSolver {
     fn new(design: &crate::Design, y: &[f64], intercept: bool) -> Result<Self> {
         let (n, p) = (design.nrows(), design.ncols());
         let m = p + usize::from(intercept);
-        let x = design.to_dense();
+        let x = design.to_dense()?;
         let mut a = Array2::<f64>::ones((n, m));
         a.slice_mut(ndarray::s![.., ..p]).assign(&x);
         let nf = n as f64;

@@ -37,10 +37,9 @@ pub fn design(option: &str, path: &Path) -> CliResult<Design> {
 /// Reads a dense matrix (CSV; Matrix Market is densified) for inputs that are not designs,
 /// such as a covariance matrix.
 pub fn dense_matrix(path: &Path) -> CliResult<ndarray::Array2<f64>> {
-    Ok(match io::read_matrix(path)? {
-        MatrixInput::Dense(a) => a,
-        MatrixInput::Sparse(m) => m.to_dense(),
-    })
+    io::read_matrix(path)?
+        .into_dense()
+        .map_err(|e| CliError::from(e).context(path.display().to_string()))
 }
 
 /// Reads a vector, one value per line, and checks its length against `expected` (what the
