@@ -16,6 +16,7 @@ use crate::error::{check_rows, Error, Result};
 use crate::loss::{LeastSquares, Logistic, Loss};
 use crate::path::{fit_path, lambda_max, log_grid, PathOptions};
 use crate::penalty::Penalty;
+use crate::solver::Status;
 use rand::{rngs::StdRng, seq::SliceRandom, SeedableRng};
 use rayon::prelude::*;
 
@@ -168,9 +169,23 @@ pub struct CvResult {
     pub one_se: usize,
     /// The fold of each row.
     pub fold_of_row: Vec<usize>,
+    /// `statuses[f][l]`: how the fit of fold f at λ index l stopped (its scores are those
+    /// of the returned iterate either way; see [`CvResult::unconverged`]).
+    #[serde(default)]
+    pub statuses: Vec<Vec<Status>>,
 }
 
 impl CvResult {
+    /// The number of fold fits that stopped before convergence (iteration or time limit,
+    /// failed line search); their held-out scores are those of the best iterate.
+    pub fn unconverged(&self) -> usize {
+        self.statuses
+            .iter()
+            .flatten()
+            .filter(|s| **s != Status::Converged)
+            .count()
+    }
+
     /// λ with the minimum mean score.
     ///
     /// # Errors
@@ -260,7 +275,9 @@ pub fn cross_validate(
         duality_gaps: false,
         ..opts.path.clone()
     };
-    let run_fold = |f: usize| -> Result<Vec<Vec<f64>>> {
+    // Per fold: the scores and the solver status at every λ.
+    type FoldResult = (Vec<Vec<f64>>, Vec<Status>);
+    let run_fold = |f: usize| -> Result<FoldResult> {
         let train: Vec<usize> = (0..n).filter(|&i| fold_of_row[i] != f).collect();
         let test: Vec<usize> = (0..n).filter(|&i| fold_of_row[i] == f).collect();
         let sub = loss.subset(&train)?;
@@ -271,19 +288,23 @@ pub fn cross_validate(
             &path_opts,
         )?;
         // per λ: the scores
-        path.points
+        let scores = path
+            .points
             .iter()
             .map(|p| loss.held_out(&test, &p.x.to_dense()?))
-            .collect::<Result<Vec<_>>>()
+            .collect::<Result<Vec<_>>>()?;
+        Ok((scores, path.points.iter().map(|p| p.status).collect()))
     };
-    let per_fold: Vec<Vec<Vec<f64>>> = if opts.parallel {
+    let (per_fold, statuses): (Vec<Vec<Vec<f64>>>, Vec<Vec<Status>>) = if opts.parallel {
         (0..k)
             .into_par_iter()
             .map(run_fold)
             .collect::<Result<Vec<_>>>()?
     } else {
         (0..k).map(run_fold).collect::<Result<Vec<_>>>()?
-    };
+    }
+    .into_iter()
+    .unzip();
     let names = loss.score_names();
     let scores: Vec<Vec<Vec<f64>>> = (0..names.len())
         .map(|s| {
@@ -318,5 +339,6 @@ pub fn cross_validate(
         best,
         one_se,
         fold_of_row,
+        statuses,
     })
 }

@@ -207,6 +207,15 @@ fn cv_json_csv_plot_and_determinism() {
     assert!(one_se <= best && mean[one_se] <= mean[best] + se[best]);
     assert!((0..one_se).all(|l| mean[l] > mean[best] + se[best]));
     assert_eq!(doc["score"], "mean_squared_error");
+    assert_eq!(doc["unconverged_fits"], 0);
+    // Fits cut short by an iteration limit are counted and warned about.
+    let mut capped: Vec<&str> = args.to_vec();
+    capped.extend(["--max-iter", "1"]);
+    let out = ellone(&capped);
+    assert!(out.status.success());
+    let short: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert!(short["unconverged_fits"].as_u64().unwrap() > 0);
+    assert!(String::from_utf8_lossy(&out.stderr).contains("fold fits stopped before convergence"));
     // The same seed gives the same folds and the same numbers.
     let again = run_json(&args);
     assert_eq!(doc["mean"], again["mean"]);

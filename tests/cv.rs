@@ -66,6 +66,10 @@ fn bad_fold_counts_and_edited_results_are_errors() {
         ..Default::default()
     };
     let mut cv = cross_validate(&loss, &Penalty::l1(1.0).unwrap(), &opts).unwrap();
+    // One status per fold and λ; every fold fit converged.
+    assert_eq!(cv.statuses.len(), 3);
+    assert!(cv.statuses.iter().all(|f| f.len() == cv.lambdas.len()));
+    assert_eq!(cv.unconverged(), 0);
     assert_eq!(cv.lambda_best().unwrap(), cv.lambdas[cv.best]);
     cv.best = cv.lambdas.len();
     assert!(matches!(cv.lambda_best(), Err(Error::InvalidArgument(_))));

@@ -10,11 +10,13 @@
 //!
 //! JSON keys: `loss`, `folds`, `seed`, `score`, `lambdas` (decreasing), `mean`,
 //! `std_error`, `lambda_best`, `lambda_one_se`, `best_index`, `one_se_index` (0-based into
-//! `lambdas`), `secondary` (the other scores' means per λ, by name), `seconds`. CSV: a header
+//! `lambdas`), `secondary` (the other scores' means per λ, by name), `unconverged_fits`
+//! (fold fits that stopped before convergence, also warned about on stderr), `seconds`.
+//! CSV: a header
 //! `lambda,mean,std_error` (plus one mean column per secondary score) and one row per λ.
 
 use crate::output::{self, finite, finite_vec};
-use crate::path::{check_writable, load, path_options, write_text, ProblemArgs};
+use crate::path::{check_writable, load, path_options, warn, write_text, ProblemArgs};
 use crate::{CliError, CliResult};
 use ellone::cv::{cross_validate, CvOptions, CvResult};
 use ellone::plot::plot_cv;
@@ -62,6 +64,8 @@ struct Report {
     best_index: usize,
     one_se_index: usize,
     secondary: BTreeMap<String, Vec<f64>>,
+    /// Fold fits that stopped before convergence (of folds × λ values).
+    unconverged_fits: usize,
     seconds: f64,
 }
 
@@ -140,8 +144,17 @@ pub fn run(args: &Args) -> CliResult<()> {
         best_index: cv.best,
         one_se_index: cv.one_se,
         secondary,
+        unconverged_fits: cv.unconverged(),
         seconds: clock.elapsed().as_secs_f64(),
     };
+    if report.unconverged_fits > 0 {
+        warn(&format!(
+            "{} of {} fold fits stopped before convergence; their held-out scores are those of \
+             the best iterate (raise --max-iter or loosen --tol)",
+            report.unconverged_fits,
+            args.folds * cv.lambdas.len()
+        ));
+    }
     if let Some(f) = &args.plot {
         let title = format!(
             "{}-fold cross-validation ({})",
