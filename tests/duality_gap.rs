@@ -102,3 +102,72 @@ fn gap_from_a_held_gradient_matches_and_bounds_the_suboptimality() {
     }
     assert_eq!(checked, 3 * 2 * 4 * 3);
 }
+
+/// A "converged" status is never contradicted by the duality gap. One column on a scale of
+/// 10⁸ sets the relative KKT tolerance (via ‖∇f(x₀)‖∞) so loose that the other
+/// coordinates, even the unpenalised intercept, went unchecked: FISTA reported convergence
+/// with a gap equal to the objective, Newton-CD with a gap of 90 % of it. Now every
+/// solver either stops with a gap within `GAP_GUARD`·max(1, |F|) or reports a limit.
+/// Reference: the change of variables b₀' = 10⁸·b₀ ("Convex Optimization", textbook, 2004,
+/// §4.1.3) — scaling column 0 by 10⁸ with penalty weight 1 is the unscaled problem with
+/// weight 10⁻⁸ on that coordinate, which has no scale problem; both optima must agree.
+#[test]
+fn converged_is_never_contradicted_by_the_gap() {
+    use ellone::solver::{Admm, Fista, Owlqn, Status, GAP_GUARD};
+    let (n, p) = (20, 3);
+    let mut rng = StdRng::seed_from_u64(11);
+    let plain = Array2::from_shape_fn((n, p), |_| rng.sample::<f64, _>(StandardNormal));
+    let y: Vec<f64> = (0..n)
+        .map(|_| 3.0 + rng.sample::<f64, _>(StandardNormal))
+        .collect();
+    let mut scaled = plain.clone();
+    scaled.column_mut(0).mapv_inplace(|v| v * 1e8);
+    let lambda = 0.01;
+    let loss = LeastSquares::from_dense(scaled.view(), &y, true).unwrap();
+    let pen = Penalty::l1(lambda).unwrap();
+    // The same problem without the scale: weight 1e-8 on coordinate 0 (the intercept,
+    // coordinate 3, is unpenalised either way).
+    let reference_loss = LeastSquares::from_dense(plain.view(), &y, true).unwrap();
+    let weights = vec![1e-8, 1.0, 1.0, 0.0];
+    let reference_pen = Penalty::l1(lambda).unwrap().with_weights(weights).unwrap();
+    let tight = SolverOptions {
+        tol: 1e-12,
+        ..Default::default()
+    };
+    let reference = NewtonCd::new(tight)
+        .solve(&reference_loss, &reference_pen)
+        .unwrap();
+    assert!(reference.converged());
+    let solvers: Vec<Box<dyn Solver>> = vec![
+        Box::new(NewtonCd::new(SolverOptions::default())),
+        Box::new(Fista::new(SolverOptions::default())),
+        Box::new(Owlqn::new(SolverOptions::default())),
+        Box::new(Admm::new(SolverOptions::default())),
+    ];
+    for solver in &solvers {
+        let sol = solver.solve(&loss, &pen).unwrap();
+        if sol.status == Status::Converged {
+            let gap = sol.duality_gap.expect("least squares has a gap");
+            assert!(
+                gap <= GAP_GUARD * sol.objective.abs().max(1.0),
+                "{}: converged with gap {gap} at F = {}",
+                solver.name(),
+                sol.objective
+            );
+            assert!(
+                (sol.objective - reference.objective).abs() <= 1e-3 * reference.objective,
+                "{}: {} against {}",
+                solver.name(),
+                sol.objective,
+                reference.objective
+            );
+        }
+    }
+    // Newton-CD gets there.
+    let sol = NewtonCd::new(SolverOptions::default())
+        .solve(&loss, &pen)
+        .unwrap();
+    assert!(sol.converged());
+    assert!((sol.objective - reference.objective).abs() <= 1e-9 * reference.objective);
+    assert!((sol.x[3] - reference.x[3]).abs() <= 1e-6 * reference.x[3].abs());
+}

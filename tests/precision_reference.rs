@@ -261,10 +261,10 @@ fn more_variables_than_samples() {
         gap.abs() <= 1e-6 * fit.objective.abs().max(1.0),
         "gap {gap}"
     );
-    let t = std::time::Instant::now();
+    // λ = 0 with p > n: refused before any solve (no timing assertion: a hang would
+    // show as a test that never finishes).
     let err = estimate_precision(PrecisionInput::Data(x.view()), 0.0, &opts).unwrap_err();
     assert!(matches!(err, Error::Unbounded(_)), "{err:?}");
-    assert!(t.elapsed().as_secs() < 60, "must not hang");
 }
 
 /// Bad input gives typed errors, never a panic.
@@ -417,6 +417,36 @@ fn zero_weights_on_a_singular_covariance() {
         .expect("a bounded problem has a dual certificate");
     assert!((0.0..1e-6).contains(&gap), "gap {gap}");
     assert!(max_abs(&fit.precision) < 1e3);
+}
+
+/// A singular S (5 centred samples of 8 variables, rank 4) at small λ, where the minimiser
+/// has large entries along S's null space and the Hessian W⊗W is badly conditioned: the
+/// inner sweeps stall at their cap, and Newton-CD used to need more than 3 000 iterations
+/// at λ = 0.01 (its reduced Newton step was dropped whenever it changed a sign; it is now
+/// truncated at the orthant boundary, in rounds). Certified by the duality gap (weak
+/// duality, "Convex Optimization", Cambridge University Press, 2004, §5.2.2). At λ = 10⁻⁸
+/// the minimiser (|Θ| ~ 1/λ) is numerically out of reach: the fit used to report
+/// `Converged` with a gap of 30 % of |F|, and is now a `Numerical` error.
+#[test]
+fn singular_covariance_at_small_lambda() {
+    let (n, p) = (5, 8);
+    let mut rng = StdRng::seed_from_u64(9);
+    let x = Array2::from_shape_fn((n, p), |_| rng.random::<f64>() - 0.5);
+    let s = sample_covariance(x.view(), true).unwrap();
+    let lmax = lambda_max(s.view(), None).unwrap();
+    for ratio in [0.2, 0.05, 0.01] {
+        let fit = solve_cov(&s, ratio * lmax, &PrecisionOptions::default());
+        assert_eq!(fit.status, Status::Converged, "λ = {ratio}·λ_max");
+        let gap = fit.duality_gap.expect("gap");
+        assert!(gap <= 1e-6 * fit.objective.abs().max(1.0), "gap {gap}");
+    }
+    let err = estimate_precision(
+        PrecisionInput::Covariance(s.view()),
+        1e-8 * lmax,
+        &PrecisionOptions::default(),
+    )
+    .unwrap_err();
+    assert!(matches!(err, Error::Numerical(_)), "{err:?}");
 }
 
 /// Weights: λ·w_ij with every w_ij = 2 at λ = 0.05 is the problem at λ = 0.1 (diagonal

@@ -329,8 +329,8 @@ impl NewtonCd {
                     free.push(k);
                 }
             }
-            let gap = if run.wants_gap(&self.options) {
-                loss.duality_gap(&x, &pen)
+            let gap = if run.wants_gap(&self.options, kkt) {
+                loss.duality_gap_with_gradient(&x, &g, &pen)
             } else {
                 None
             };
@@ -525,9 +525,28 @@ fn cold_start_entry(candidates: &[usize], x: &[f64], g: &[f64], pen: &ResolvedPe
     }
 }
 
-/// Replaces the coordinate-descent direction by the reduced Newton direction on the active
-/// set when that is well defined and keeps the signs; otherwise leaves it unchanged.
-/// On return the model's cached direction matches `target − x`.
+/// Rounds of truncated Newton steps that [`subspace_newton`] takes, each on a smaller
+/// active set.
+const NEWTON_ROUNDS: usize = 8;
+
+/// Replaces the coordinate-descent direction by reduced Newton steps on the active set.
+///
+/// With the sweeps' point z_c = target and its signs s fixed, the quadratic model is the
+/// smooth q_s(z) = gᵀ(z − x) + ½(z − x)ᵀH(z − x) + λsᵀz on the active coordinates (the
+/// others fixed at their values), and its minimiser z_N solves one linear system. q_s
+/// falls along the segment z_c + t(z_N − z_c), t ∈ [0, 1], and while the segment stays in
+/// the closed orthant of s, q_s is the penalised model itself. So each round steps to z_N
+/// when the signs hold, and otherwise to the first point where a coordinate reaches zero
+/// (set exactly to zero, and fixed there for the next round, which solves on the smaller
+/// active set): never a worse model value than the sweeps' point ("orthant-wise"
+/// truncation, as in "Scalable training of L1-regularized log-linear models", ICML, 2007).
+/// At most [`NEWTON_ROUNDS`] rounds. On a 5-sample, 8-variable precision problem (a
+/// singular S, λ = 0.01) the sweeps stalled at their cap and Newton-CD needed more than
+/// 3 000 iterations with the untruncated step (used only when it kept every sign); with
+/// these rounds it converges.
+///
+/// Returns whether the direction changed. On return the model's cached direction matches
+/// `target − x`.
 fn subspace_newton(
     model: &mut dyn LocalModel,
     pen: &ResolvedPenalty,
@@ -537,29 +556,101 @@ fn subspace_newton(
     target: &mut [f64],
     max_size: usize,
 ) -> bool {
-    let active: Vec<usize> = free
+    let mut active: Vec<usize> = free
         .iter()
         .copied()
         .filter(|&k| target[k] != 0.0 || pen.l1[k] == 0.0)
         .collect();
+    active.sort_unstable(); // looked up by binary search below
     let na = active.len();
     if na == 0 || na > max_size {
         return false;
     }
-    let mut h = model.hessian_block(&active);
-    let mut max_diag = 0.0f64;
+    let mut h_full = model.hessian_block(&active);
     for (a, &k) in active.iter().enumerate() {
-        h[a * na + a] += pen.l2[k];
-        max_diag = max_diag.max(h[a * na + a]);
+        h_full[a * na + a] += pen.l2[k];
     }
-    // Coordinates of the free set that the sweeps sent to zero stay there: d_k = −x_k. Their
-    // effect on the active block enters the right-hand side through (H d_Z)_A.
+    let full = active.clone();
+    let position = |k: usize| full.binary_search(&k).ok();
+    let mut changed = false;
+    for _ in 0..NEWTON_ROUNDS {
+        let Some(d) = newton_point(model, pen, x, g, free, target, &active, &h_full, &position)
+        else {
+            break;
+        };
+        let crosses = |k: usize, zc: f64, zn: f64| {
+            pen.l1[k] != 0.0 && !(zn.signum() == zc.signum() && zn != 0.0)
+        };
+        let reach = active.iter().zip(&d).fold(1.0f64, |t, (&k, &dk)| {
+            let (zc, zn) = (target[k], x[k] + dk);
+            if crosses(k, zc, zn) {
+                t.min(zc / (zc - zn))
+            } else {
+                t
+            }
+        });
+        if reach <= 0.0 {
+            break;
+        }
+        changed = true;
+        for (&k, &dk) in active.iter().zip(&d) {
+            let (zc, zn) = (target[k], x[k] + dk);
+            // The coordinates that reach the boundary first land exactly on zero.
+            target[k] = if crosses(k, zc, zn) && zc / (zc - zn) <= reach {
+                0.0
+            } else {
+                zc + reach * (zn - zc)
+            };
+        }
+        if reach == 1.0 {
+            break;
+        }
+        active.retain(|&k| target[k] != 0.0 || pen.l1[k] == 0.0);
+        if active.is_empty() {
+            break;
+        }
+    }
+    // Rebuild the model's cached direction for the final target.
     model.clear();
-    let mut zeroed = false;
     for &k in free {
-        if target[k] == 0.0 && pen.l1[k] != 0.0 && x[k] != 0.0 {
-            model.step(k, -x[k]);
-            zeroed = true;
+        let dk = target[k] - x[k];
+        if dk != 0.0 {
+            model.step(k, dk);
+        }
+    }
+    changed
+}
+
+/// The minimiser x + d over the `active` coordinates of the quadratic model with the signs
+/// of `target` fixed, the other free coordinates held at `target` (their effect enters the
+/// right-hand side through (H d_Z)_A); `h_full` is the Hessian block of the first round's
+/// active set, indexed through `position`. `None` when the block is not numerically
+/// positive definite even with a tiny ridge.
+#[allow(clippy::too_many_arguments)]
+fn newton_point(
+    model: &mut dyn LocalModel,
+    pen: &ResolvedPenalty,
+    x: &[f64],
+    g: &[f64],
+    free: &[usize],
+    target: &[f64],
+    active: &[usize],
+    h_full: &[f64],
+    position: &dyn Fn(usize) -> Option<usize>,
+) -> Option<Vec<f64>> {
+    let na = active.len();
+    let nf = (h_full.len() as f64).sqrt() as usize;
+    let idx: Vec<usize> = active.iter().map(|&k| position(k)).collect::<Option<_>>()?;
+    let mut hm = ndarray::Array2::from_shape_fn((na, na), |(a, b)| h_full[idx[a] * nf + idx[b]]);
+    let max_diag = (0..na).fold(0.0f64, |m, a| m.max(hm[[a, a]]));
+    // Fixed coordinates: d_k = target_k − x_k for the free coordinates not in `active`.
+    model.clear();
+    let mut fixed = false;
+    for &k in free {
+        let dk = target[k] - x[k];
+        if dk != 0.0 && active.binary_search(&k).is_err() {
+            model.step(k, dk);
+            fixed = true;
         }
     }
     let rhs: Vec<f64> = active
@@ -570,50 +661,25 @@ fn subspace_newton(
             } else {
                 target[k].signum()
             };
-            let coupling = if zeroed { model.hd(k) } else { 0.0 };
+            let coupling = if fixed { model.hd(k) } else { 0.0 };
             -(g[k] + pen.l2[k] * x[k] + pen.l1[k] * s + coupling)
         })
         .collect();
-    let hm = ndarray::Array2::from_shape_vec((na, na), h).ok();
-    let mut newton = None;
-    if let Some(mut hm) = hm {
-        for attempt in 0..2 {
-            if attempt == 1 {
-                // A tiny ridge for singular blocks (duplicate or collinear columns).
-                for a in 0..na {
-                    hm[[a, a]] += 1e-12 * max_diag.max(f64::MIN_POSITIVE);
-                }
+    for attempt in 0..2 {
+        if attempt == 1 {
+            // A tiny ridge for singular blocks (duplicate or collinear columns).
+            for a in 0..na {
+                hm[[a, a]] += 1e-12 * max_diag.max(f64::MIN_POSITIVE);
             }
-            if let Some(ch) = crate::linalg::cholesky(hm.view()) {
-                let d = ch.apply_inverse(&rhs);
-                if d.iter().all(|v| v.is_finite()) {
-                    newton = Some(d);
-                    break;
-                }
+        }
+        if let Some(ch) = crate::linalg::cholesky(hm.view()) {
+            let d = ch.apply_inverse(&rhs);
+            if d.iter().all(|v| v.is_finite()) {
+                return Some(d);
             }
         }
     }
-    let consistent = newton.as_ref().is_some_and(|d| {
-        active.iter().zip(d).all(|(&k, &dk)| {
-            pen.l1[k] == 0.0 || (x[k] + dk).signum() == target[k].signum() && x[k] + dk != 0.0
-        })
-    });
-    // Rebuild the model's cached direction for the chosen d (zeroed coordinates keep
-    // target 0 in both cases).
-    model.clear();
-    if consistent {
-        let d = newton.unwrap_or_default();
-        for (&k, &dk) in active.iter().zip(&d) {
-            target[k] = x[k] + dk;
-        }
-    }
-    for &k in free {
-        let dk = target[k] - x[k];
-        if dk != 0.0 {
-            model.step(k, dk);
-        }
-    }
-    consistent
+    None
 }
 
 #[cfg(test)]
