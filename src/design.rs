@@ -93,7 +93,8 @@ impl Design {
     ///
     /// # Errors
     /// [`Error::Empty`] for zero rows or columns, [`Error::NonFinite`] for NaN/Inf,
-    /// [`Error::ZeroColumn`] for a column of zeros.
+    /// [`Error::ZeroColumn`] for a column of zeros, [`Error::InvalidArgument`] for a column
+    /// whose squares all underflow (entries below about 10⁻¹⁶²).
     pub fn dense(x: ArrayView2<f64>) -> Result<Self> {
         let d = Self::dense_unchecked_zero(x)?;
         d.check_no_zero_column()?;
@@ -134,7 +135,7 @@ impl Design {
     ///
     /// # Errors
     /// [`Error::Empty`], [`Error::NonFinite`], [`Error::ZeroColumn`] (a column with no
-    /// non-zero value).
+    /// non-zero value), [`Error::InvalidArgument`] (a column whose squares all underflow).
     pub fn sparse(x: CsMat<f64>) -> Result<Self> {
         let d = Self::sparse_unchecked_zero(x)?;
         d.check_no_zero_column()?;
@@ -171,6 +172,15 @@ impl Design {
     fn check_no_zero_column(&self) -> Result<()> {
         for j in 0..self.p {
             if self.col_sq_norm(j) == 0.0 {
+                let mut largest = 0.0f64;
+                self.for_each_in_col(j, |_, v| largest = largest.max(v.abs()));
+                if largest > 0.0 {
+                    // Non-zero, but every square underflows: no usable curvature.
+                    return Err(Error::InvalidArgument(format!(
+                        "column {j} of the design matrix is too small to use (largest |x| = \
+                         {largest:e}, whose square underflows): rescale it"
+                    )));
+                }
                 return Err(Error::ZeroColumn(j));
             }
         }
@@ -436,6 +446,13 @@ mod tests {
         ));
         let a = ndarray::Array2::<f64>::zeros((0, 3));
         assert!(matches!(Design::dense(a.view()), Err(Error::Empty(_))));
+        // Non-zero but below the square root of the smallest double: named as such, not
+        // as a zero column.
+        let a = array![[1.0, 1e-320], [2.0, 0.0]];
+        match Design::dense(a.view()) {
+            Err(Error::InvalidArgument(m)) => assert!(m.contains("underflows"), "{m}"),
+            other => panic!("{other:?}"),
+        }
     }
 
     #[test]

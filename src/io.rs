@@ -311,8 +311,15 @@ pub fn read_matrix_market(path: &Path) -> Result<CsMat<f64>> {
     parse_matrix_market(&text, &path.display().to_string())
 }
 
-/// Parses the header line's words; returns whether the matrix is symmetric.
-fn parse_mm_header(line: &str, file: &str) -> Result<bool> {
+/// What the header declares: whether the matrix is symmetric, and whether its values are
+/// integers.
+struct MmHeader {
+    symmetric: bool,
+    integer: bool,
+}
+
+/// Parses the header line's words.
+fn parse_mm_header(line: &str, file: &str) -> Result<MmHeader> {
     let words: Vec<&str> = line.split_whitespace().collect();
     let err = |col: usize, msg: String| Err(parse_error(file, 1, col, msg));
     let expected = "expected '%%MatrixMarket matrix coordinate real general'";
@@ -380,7 +387,10 @@ fn parse_mm_header(line: &str, file: &str) -> Result<bool> {
             format!("unexpected word {} after the header", quote(words[5])),
         );
     }
-    Ok(symmetric)
+    Ok(MmHeader {
+        symmetric,
+        integer: field.eq_ignore_ascii_case("integer"),
+    })
 }
 
 /// Parses a one-based index field and checks it against `limit`.
@@ -429,7 +439,7 @@ pub fn parse_matrix_market(text: &str, file: &str) -> Result<CsMat<f64>> {
         return Err(Error::Empty(file.to_string()));
     }
     let header = lines.first().map_or("", |&(_, l)| l);
-    let symmetric = parse_mm_header(header, file)?;
+    let MmHeader { symmetric, integer } = parse_mm_header(header, file)?;
 
     // Everything after the header that is neither blank nor a comment.
     let mut content = lines
@@ -537,7 +547,19 @@ pub fn parse_matrix_market(text: &str, file: &str) -> Result<CsMat<f64>> {
         };
         let i = parse_index(next_field(1)?, "row", rows, file, no, 1)?;
         let j = parse_index(next_field(2)?, "column", cols, file, no, 2)?;
-        let v = parse_finite(next_field(3)?).map_err(|m| parse_error(file, no, 3, m))?;
+        let text = next_field(3)?;
+        if integer && text.parse::<i64>().is_err() {
+            return Err(parse_error(
+                file,
+                no,
+                3,
+                format!(
+                    "{} is not an integer (the header declares 'integer')",
+                    quote(text)
+                ),
+            ));
+        }
+        let v = parse_finite(text).map_err(|m| parse_error(file, no, 3, m))?;
         if fields.next().is_some() {
             return Err(parse_error(
                 file,
@@ -1046,6 +1068,21 @@ mod tests {
         assert!(
             matches!(err, Error::NonFinite { ref location, .. } if location.contains("(2, 1)"))
         );
+    }
+
+    /// The Matrix Market format ("The Matrix Market exchange formats: initial design",
+    /// NIST report, 1996): an `integer` file holds integer values only.
+    #[test]
+    fn matrix_market_integer_values_are_integers() {
+        let header = "%%MatrixMarket matrix coordinate integer general\n";
+        let ok = parse_matrix_market(&format!("{header}2 2 2\n1 1 3\n2 2 -4\n"), "f").unwrap();
+        assert_eq!(ok.to_dense(), ndarray::array![[3.0, 0.0], [0.0, -4.0]]);
+        let msg = parse_err_at(
+            parse_matrix_market(&format!("{header}2 2 1\n1 1 1.5\n"), "f"),
+            3,
+            3,
+        );
+        assert!(msg.contains("not an integer"), "{msg}");
     }
 
     #[test]

@@ -234,8 +234,8 @@ pub(crate) fn semidefinite(s: &Array2<f64>) -> Result<()> {
     }
     if linalg::cholesky(m.view()).is_none() {
         return Err(Error::NotPositiveDefinite(format!(
-            "covariance: not positive semidefinite (S + δI has no Cholesky factor, \
-             δ = {shift:.3e}); a sample covariance never is indefinite"
+            "the covariance S (not positive semidefinite: S + δI with δ = {shift:.3e} has no \
+             Cholesky factor, as it would for any sample covariance)"
         )));
     }
     Ok(())

@@ -70,8 +70,14 @@ pub fn plot_race(result: &RaceResult, path: &Path, width: u32, height: u32) -> R
         ));
     }
     let target = result.target.max(DISPLAY_FLOOR);
-    s_min = s_min.min(target) / 3.0;
-    s_max = s_max.max(target) * 3.0;
+    // A target beyond the drawable range (e.g. 1e308: "any accuracy") gets no line.
+    let draw_target = target <= PLOT_LIMIT / 3.0;
+    if draw_target {
+        s_min = s_min.min(target);
+        s_max = s_max.max(target);
+    }
+    s_min /= 3.0;
+    s_max *= 3.0;
     let t_max = if t_max > 0.0 { t_max * 1.05 } else { 1e-3 };
     if !(t_max <= PLOT_LIMIT && s_max <= PLOT_LIMIT) {
         return Err(Error::InvalidArgument(format!(
@@ -100,14 +106,16 @@ pub fn plot_race(result: &RaceResult, path: &Path, width: u32, height: u32) -> R
         .y_label_formatter(&|v| format!("{v:.0e}"))
         .draw()
         .map_err(|e| io(e.to_string()))?;
-    chart
-        .draw_series(DashedLineSeries::new(
-            vec![(0.0, target), (t_max, target)],
-            6,
-            4,
-            BLACK.mix(0.5).stroke_width(1),
-        ))
-        .map_err(|e| io(e.to_string()))?;
+    if draw_target {
+        chart
+            .draw_series(DashedLineSeries::new(
+                vec![(0.0, target), (t_max, target)],
+                6,
+                4,
+                BLACK.mix(0.5).stroke_width(1),
+            ))
+            .map_err(|e| io(e.to_string()))?;
+    }
     for (k, (name, pts)) in points.iter().enumerate() {
         let color = PALETTE[k % PALETTE.len()];
         chart

@@ -308,6 +308,12 @@ fn extreme_values_are_errors_and_tiny_spans_still_draw() {
         target: 1e-6,
     };
     ellone::race_plot::plot_race(&race, &file, 400, 300).unwrap();
+    // A target beyond the drawable range ("any accuracy") is drawn without its line.
+    let any = RaceResult {
+        target: 1e308,
+        ..race.clone()
+    };
+    ellone::race_plot::plot_race(&any, &file, 400, 300).unwrap();
     let fan = ellone::scenario::pipeline::Fan {
         substation: 0,
         day_of_year: 1,

@@ -50,7 +50,8 @@ fn check_solution(sol: &Solution) {
     }
 }
 
-/// The contract every Err must meet: one of the input-validation variants.
+/// The contract every Err must meet: one of the input-validation variants (a column whose
+/// squares underflow, e.g. of 1e-300, is an `InvalidArgument`).
 fn check_error(e: &Error) {
     assert!(
         matches!(
@@ -61,6 +62,7 @@ fn check_error(e: &Error) {
                 | Error::InvalidLambda { .. }
                 | Error::InvalidLabel { .. }
                 | Error::ZeroColumn(_)
+                | Error::InvalidArgument(_)
         ),
         "unexpected error kind: {e}"
     );
