@@ -571,11 +571,9 @@ fn subspace_newton(
         h_full[a * na + a] += pen.l2[k];
     }
     let full = active.clone();
-    let position = |k: usize| full.binary_search(&k).ok();
     let mut changed = false;
     for _ in 0..NEWTON_ROUNDS {
-        let Some(d) = newton_point(model, pen, x, g, free, target, &active, &h_full, &position)
-        else {
+        let Some(d) = newton_point(model, pen, x, g, free, target, &active, &h_full, &full) else {
             break;
         };
         let crosses = |k: usize, zc: f64, zn: f64| {
@@ -624,8 +622,8 @@ fn subspace_newton(
 /// The minimiser x + d over the `active` coordinates of the quadratic model with the signs
 /// of `target` fixed, the other free coordinates held at `target` (their effect enters the
 /// right-hand side through (H d_Z)_A); `h_full` is the Hessian block of the first round's
-/// active set, indexed through `position`. `None` when the block is not numerically
-/// positive definite even with a tiny ridge.
+/// active set `full` (sorted, a superset of `active`). `None` when the block is not
+/// numerically positive definite even with a tiny ridge.
 #[allow(clippy::too_many_arguments)]
 fn newton_point(
     model: &mut dyn LocalModel,
@@ -636,11 +634,14 @@ fn newton_point(
     target: &[f64],
     active: &[usize],
     h_full: &[f64],
-    position: &dyn Fn(usize) -> Option<usize>,
+    full: &[usize],
 ) -> Option<Vec<f64>> {
     let na = active.len();
-    let nf = (h_full.len() as f64).sqrt() as usize;
-    let idx: Vec<usize> = active.iter().map(|&k| position(k)).collect::<Option<_>>()?;
+    let nf = full.len();
+    let idx: Vec<usize> = active
+        .iter()
+        .map(|k| full.binary_search(k).ok())
+        .collect::<Option<_>>()?;
     let mut hm = ndarray::Array2::from_shape_fn((na, na), |(a, b)| h_full[idx[a] * nf + idx[b]]);
     let max_diag = (0..na).fold(0.0f64, |m, a| m.max(hm[[a, a]]));
     // Fixed coordinates: d_k = target_k − x_k for the free coordinates not in `active`.
