@@ -393,7 +393,7 @@ fn bad_input_is_rejected_with_typed_errors() {
 /// Zero weights on a singular S. Variables 0 and 1 are identical (S v = 0 for
 /// v = (1, −1, 0)), so along Θ + t·vvᵀ the trace term is constant and −log det falls like
 /// −log t: with w_01 = 0 nothing penalises that ray and the problem is unbounded below
-/// (the recession-direction argument of "Convex Optimization", Cambridge University Press,
+/// (the recession-direction argument of "Convex Optimization", textbook,
 /// 2004, §3.1 and §5.2). The fit used to stop there as `Converged` (its gradient vanishes
 /// like 1/t) with Θ ≈ 6·10⁶; it is now `Unbounded`. With w_01 > 0 and another weight 0 the
 /// ray is penalised, the problem is bounded, and the fit carries a duality gap.
@@ -424,7 +424,7 @@ fn zero_weights_on_a_singular_covariance() {
 /// inner sweeps stall at their cap, and Newton-CD used to need more than 3 000 iterations
 /// at λ = 0.01 (its reduced Newton step was dropped whenever it changed a sign; it is now
 /// truncated at the orthant boundary, in rounds). Certified by the duality gap (weak
-/// duality, "Convex Optimization", Cambridge University Press, 2004, §5.2.2). At λ = 10⁻⁸
+/// duality, "Convex Optimization", textbook, 2004, §5.2.2). At λ = 10⁻⁸
 /// the minimiser (|Θ| ~ 1/λ) is numerically out of reach: the fit used to report
 /// `Converged` with a gap of 30 % of |F|, and is now a `Numerical` error.
 #[test]
