@@ -22,8 +22,7 @@
 //! coordinate |g_k + λ_k sign(x_k)| if x_k ≠ 0, else max(|g_k| − λ_k, 0); for matrix
 //! problems per matrix entry. Where a clean dual exists (least squares, logistic,
 //! precision) the duality gap is reported too. The default stopping rule is
-//! KKT ≤ 10⁻⁷ · max(1, ‖∇f(x₀)‖∞) (x₀ the loss's default start), confirmed by a duality
-//! gap ≤ [`solver::GAP_GUARD`]·max(1, |F|) where one exists. Non-convergence is a
+//! KKT ≤ 10⁻⁷ · max(1, ‖∇f(x₀)‖∞) (x₀ the loss's default start). Non-convergence is a
 //! [`Status`], never an error, and the best iterate is returned.
 //!
 //! **The method** ([`solver::newton_cd`]): at x, build the second-order model of f, sweep

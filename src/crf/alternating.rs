@@ -161,7 +161,7 @@ impl Alternating {
             g.copy_from_slice(model.gradient());
             let objective = model.value() + pen.value(&x);
             let kkt = crate::solver::kkt_residual(loss, &pen, &x, &g);
-            let gap = if run.wants_gap(&self.options, kkt) {
+            let gap = if run.wants_gap(&self.options) {
                 loss.duality_gap(&x, &pen)
             } else {
                 None

@@ -76,7 +76,7 @@ pub(crate) fn record(
 ) -> (TraceRecord, (f64, f64)) {
     let objective = f + pen.value(x);
     let kkt = super::kkt_residual(loss, pen, x, g);
-    let gap = if run.wants_gap(opts, kkt) {
+    let gap = if run.wants_gap(opts) {
         loss.duality_gap(x, pen)
     } else {
         None

@@ -63,9 +63,7 @@ impl Status {
 /// Options common to all solvers.
 #[derive(Debug, Clone, PartialEq)]
 pub struct SolverOptions {
-    /// Relative KKT tolerance: converged when residual ≤ tol·max(1, ‖∇f(x₀)‖∞) (and, where
-    /// the loss has a duality gap, that gap is at most [`GAP_GUARD`]·max(1, |F|)).
-    /// Default 1e-7.
+    /// Relative KKT tolerance: converged when residual ≤ tol·max(1, ‖∇f(x₀)‖∞). Default 1e-7.
     pub tol: f64,
     /// Optional duality-gap tolerance (relative to max(1, |F|)); converged when either test
     /// passes. Default `None` (KKT only).
@@ -287,16 +285,6 @@ fn scale_of(loss: &dyn Loss, g: &[f64]) -> f64 {
         .fold(1.0f64, |a, (k, v)| a.max(v.abs() * loss.residual_scale(k)))
 }
 
-/// The largest duality gap, relative to max(1, |F|), that lets a KKT residual within the
-/// tolerance count as convergence. At a minimiser every dual point the losses build makes
-/// the gap 0, and near one the gap is of the order of the KKT residual times ‖x‖₁; a gap
-/// far larger means the KKT test was fooled — by a very flat direction (a tiny λ on a
-/// singular covariance) or by one column on a much larger scale than the others, whose
-/// gradient sets the tolerance — and the solver keeps going (to a certified point or an
-/// honest limit status). Found by probing the command line: "converged" fits with gaps of
-/// 30–90 % of the objective.
-pub const GAP_GUARD: f64 = 1e-3;
-
 /// Shared bookkeeping for one solve: clock, limits, trace, observer, best iterate.
 pub(crate) struct Run<'o> {
     pub(crate) start: Instant,
@@ -418,16 +406,10 @@ impl<'o> Run<'o> {
     }
 
     /// Records an iteration and decides whether to stop; returns the stopping status.
-    ///
-    /// Converged: the KKT residual meets the tolerance and, when the record carries a
-    /// duality gap, that gap does not contradict it (at most [`GAP_GUARD`]·max(1, |F|));
-    /// or the optional gap tolerance is met.
     pub(crate) fn check(&mut self, rec: TraceRecord) -> Option<Status> {
-        let scale = rec.objective.abs().max(1.0);
-        let certified = rec.duality_gap.is_none_or(|g| g <= GAP_GUARD * scale);
-        let converged = (rec.kkt_residual <= self.tol_abs && certified)
+        let converged = rec.kkt_residual <= self.tol_abs
             || matches!((self.gap_tol, rec.duality_gap),
-                (Some(t), Some(g)) if g <= t * scale);
+                (Some(t), Some(g)) if g <= t * rec.objective.abs().max(1.0));
         let stop = match self.observer.as_mut() {
             Some(o) => o.observe(&rec) == Control::Stop,
             None => false,
@@ -449,13 +431,9 @@ impl<'o> Run<'o> {
         }
     }
 
-    /// Whether the caller should compute the duality gap for a record with KKT residual
-    /// `kkt`: when a gap tolerance or the trace asks for it, and whenever the KKT test passes
-    /// (so [`Run::check`] can confirm it; restricted solves inside a path excepted).
-    pub(crate) fn wants_gap(&self, opts: &SolverOptions, kkt: f64) -> bool {
-        self.gap_tol.is_some()
-            || (opts.trace && opts.trace_gap)
-            || (kkt <= self.tol_abs && !self.skip_gap)
+    /// Whether the caller should compute the duality gap for this record.
+    pub(crate) fn wants_gap(&self, opts: &SolverOptions) -> bool {
+        self.gap_tol.is_some() || (opts.trace && opts.trace_gap)
     }
 
     /// Builds the final solution at x. `known` carries (F(x), KKT residual) when the solver

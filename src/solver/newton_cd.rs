@@ -329,8 +329,8 @@ impl NewtonCd {
                     free.push(k);
                 }
             }
-            let gap = if run.wants_gap(&self.options, kkt) {
-                loss.duality_gap_with_gradient(&x, &g, &pen)
+            let gap = if run.wants_gap(&self.options) {
+                loss.duality_gap(&x, &pen)
             } else {
                 None
             };

@@ -102,7 +102,7 @@ pub struct ProblemArgs {
     /// Turn screening off (same answers, slower; for comparison).
     #[arg(long)]
     pub no_screening: bool,
-    /// Convergence tolerance at every λ: KKT residual ≤ T·max(1, ‖∇f(x₀)‖∞), confirmed by the duality gap where one exists.
+    /// Convergence tolerance at every λ: KKT residual ≤ T·max(1, ‖∇f(x₀)‖∞).
     #[arg(long, value_name = "T", default_value_t = SolverOptions::default().tol,
           allow_negative_numbers = true)]
     pub tol: f64,

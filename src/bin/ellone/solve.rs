@@ -82,7 +82,7 @@ pub struct Args {
     /// Fit an unpenalised intercept b0 (least squares and logistic).
     #[arg(long)]
     pub intercept: bool,
-    /// Convergence tolerance: KKT residual ≤ T·max(1, ‖∇f(x₀)‖∞), confirmed by the duality gap where one exists.
+    /// Convergence tolerance: KKT residual ≤ T·max(1, ‖∇f(x₀)‖∞).
     #[arg(long, value_name = "T", default_value_t = SolverOptions::default().tol,
           allow_negative_numbers = true)]
     pub tol: f64,
