@@ -113,7 +113,7 @@ fn residual_covariance(data: &CrfData) -> Result<Array2<f64>> {
             let (delta, u) = sym_eigen(k.view())?;
             let xs = gemm(xt.t(), sxy);
             let mut m = gemm(u.t(), xs.view());
-            scale_rows(&mut m, &delta, |d| 1.0 / d);
+            pseudo_inverse_rows(&mut m, &delta);
             let mut f = gemm(m.t(), m.view());
             f.mapv_inplace(|v| v * n as f64);
             f
@@ -127,16 +127,16 @@ fn p_side(sxx: ArrayView2<f64>, sxy: ArrayView2<f64>) -> Result<Array2<f64>> {
     let (d, v) = sym_eigen(sxx)?;
     let t = gemm(v.t(), sxy);
     let mut scaled = t.clone();
-    scale_rows(&mut scaled, &d, |d| 1.0 / d);
+    pseudo_inverse_rows(&mut scaled, &d);
     Ok(gemm(t.t(), scaled.view()))
 }
 
-/// Multiplies row i of `a` by f(values[i]) where values[i] is above the rank cutoff, and
-/// by 0 elsewhere (the pseudo-inverse's treatment of the null space).
-fn scale_rows(a: &mut Array2<f64>, values: &[f64], f: impl Fn(f64) -> f64) {
+/// Multiplies row i of `a` by 1/values[i] where values[i] is above the rank cutoff, and by
+/// 0 elsewhere: D⁺a for D = diag(values), the pseudo-inverse's treatment of the null space.
+fn pseudo_inverse_rows(a: &mut Array2<f64>, values: &[f64]) {
     let top = values.iter().copied().fold(0.0, f64::max);
     for (mut row, &v) in a.axis_iter_mut(Axis(0)).zip(values) {
-        let factor = if v > RANK_CUTOFF * top { f(v) } else { 0.0 };
+        let factor = if v > RANK_CUTOFF * top { 1.0 / v } else { 0.0 };
         row.mapv_inplace(|x| x * factor);
     }
 }
