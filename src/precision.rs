@@ -476,40 +476,39 @@ fn solve_block(pr: &Problem<'_>, idx: &[usize]) -> Result<BlockFit> {
             )),
             e => e,
         })?;
-    // A block mixing zero and positive off-diagonal weights was not pre-checked: on a
-    // singular S it can be unbounded below along a ray Θ + t·D (D ⪰ 0 with SD = 0, seen only
-    // by zero-weight entries and the unpenalised diagonal), where ∇f → 0 like 1/t, so the
-    // KKT test alone "converges" far out on the ray. The dual candidate S + clip(Θ⁻¹ − S)
-    // differs from Θ⁻¹ by the KKT residual on the zero-weight entries, so for a bounded
-    // problem it is positive definite near the solution and the gap exists; on such a ray
-    // Θ⁻¹ tends to a singular matrix and no gap can be formed. A fit that stopped there as
-    // converged, or because no step decreased F any more (at the rounding level of F, which
-    // a bounded problem reaches only next to its solution, where the gap exists), is
-    // reported as unbounded.
-    let mixed = !all_unpenalised && (0..b).any(|a| (0..a).any(|c| pr.level(idx[a], idx[c]) == 0.0));
+    // A fit that stops as converged, or because no step decreases F any more, without a
+    // duality gap is not certified: near a minimiser the dual candidate S + clip(Θ⁻¹ − S)
+    // differs from Θ⁻¹ only by the KKT residual and is positive definite, so the gap exists.
+    // Two causes, told apart by the weights:
+    // * zero and positive off-diagonal weights mixed (not pre-checked): on a singular S the
+    //   problem can be unbounded below along a ray Θ + t·D (D ⪰ 0, SD = 0, seen only by
+    //   zero-weight entries and the unpenalised diagonal), where ∇f → 0 like 1/t and Θ⁻¹
+    //   tends to a singular matrix;
+    // * every pair penalised (or none, pre-checked): bounded, but with a singular S and a
+    //   tiny λ the minimiser lies at |Θ| ~ 1/λ along S's null space, where f is so flat that
+    //   the KKT test passes far from it (λ = 10⁻⁸ on a 5-sample, 8-variable S: "converged"
+    //   at |Θ| ≈ 10⁷ with a gap of 30 % of |F|).
     let stalled = matches!(sol.status, Status::Converged | Status::LineSearchFailed);
-    if stalled && sol.duality_gap.is_none() && !mixed {
-        // Every pair penalised (or none, which was pre-checked): the problem is bounded, but
-        // with a singular S and a tiny λ its minimiser lies at |Θ| ~ 1/λ along S's null
-        // space, where f is so flat that the KKT test passes far from it (λ = 10⁻⁸ on a
-        // 5-sample, 8-variable S: "converged" at |Θ| ≈ 10⁷ with a gap of 30 % of |F|).
+    if stalled && sol.duality_gap.is_none() {
         let largest = sol.x.iter().fold(0.0f64, |m, v| m.max(v.abs()));
-        return Err(Error::Numerical(format!(
-            "the fit of the block of {b} variables starting at {} cannot be certified: no \
-             duality gap exists at the returned point (|Θ| reached {largest:.3e}); with a \
-             singular S and λ = {:e} the minimiser is numerically out of reach, raise λ",
-            idx[0], pr.lambda
-        )));
-    }
-    if mixed && stalled && sol.duality_gap.is_none() {
-        let largest = sol.x.iter().fold(0.0f64, |m, v| m.max(v.abs()));
-        return Err(Error::Unbounded(format!(
-            "the block of {b} variables starting at {} mixes zero and positive weights and \
-             its fit diverges (|Θ| reached {largest:.3e}; no dual certificate exists there): \
-             S is singular along a direction that only zero-weight entries and the \
-             unpenalised diagonal see",
-            idx[0]
-        )));
+        let mixed =
+            !all_unpenalised && (0..b).any(|a| (0..a).any(|c| pr.level(idx[a], idx[c]) == 0.0));
+        return Err(if mixed {
+            Error::Unbounded(format!(
+                "the block of {b} variables starting at {} mixes zero and positive weights and \
+                 its fit diverges (|Θ| reached {largest:.3e}; no dual certificate exists there): \
+                 S is singular along a direction that only zero-weight entries and the \
+                 unpenalised diagonal see",
+                idx[0]
+            ))
+        } else {
+            Error::Numerical(format!(
+                "the fit of the block of {b} variables starting at {} cannot be certified: no \
+                 duality gap exists at the returned point (|Θ| reached {largest:.3e}); with a \
+                 singular S and λ = {:e} the minimiser is numerically out of reach, raise λ",
+                idx[0], pr.lambda
+            ))
+        });
     }
     let theta = loss.to_matrix(&sol.x)?;
     let w = loss.inverse_at(&sol.x)?;
