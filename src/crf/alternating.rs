@@ -237,7 +237,7 @@ impl Alternating {
             target[k] = x[k];
         }
         let threshold = self.cd.forcing * kkt;
-        let sweeps = coordinate_sweeps(model, pen, g, free, target, threshold, &self.cd).count;
+        let sweeps = coordinate_sweeps(model, pen, g, free, target, threshold, &self.cd, 0).count;
         let moved = line_search(model, pen, &self.cd, g, free, target, x, kkt, rounding_kkt);
         (sweeps, moved)
     }

@@ -15,6 +15,7 @@
 
 pub mod admm;
 mod baseline;
+mod extrapolation;
 pub mod fista;
 pub(crate) mod inner_sweeps;
 pub mod newton_cd;

@@ -19,7 +19,13 @@
 //!    slowly, the updates are over-relaxed, d_k += ω(z − c) with ω ∈ [1, 1.8] estimated from the observed
 //!    contraction (successive over-relaxation, applied only where it cannot cross a kink of
 //!    |·|), for the models that allow it: on the sparse 20000 × 50000 logistic benchmark
-//!    this cut the sweeps from 61 to 37.
+//!    this cut the sweeps from 61 to 37. Inner loops that run past 2K sweeps (K =
+//!    `CdOptions::extrapolation`, default 5) on an active set larger than the subspace
+//!    Newton step of item 4 takes are Anderson-extrapolated every K sweeps, the candidate
+//!    kept only where it lowers the penalised model (see `extrapolation`): on an
+//!    ill-conditioned Gaussian CRF (inputs with lag-one correlation 0.999) this cut the
+//!    outer iterations 2.3–2.9-fold and the time 2.7–3.5-fold; on the unscaled macrodata
+//!    lasso with the subspace step off, the sweeps 22-fold.
 //! 4. Subspace Newton step: if the sweeps stall (ill-conditioned H) and the active set
 //!    A = {k ∈ F : x_k + d_k ≠ 0} is small, solve the reduced Newton system
 //!    `H_AA d_A = −(g_A + λ_A ∘ sign(x_A + d_A))` by Cholesky and use it when it keeps the
@@ -95,6 +101,12 @@ pub struct CdOptions {
     /// (precision AR(1), p = 1000: 5.4 s plain, 8.5 s with ω ≤ 1.5, > 40 s with ω ≤ 1.8),
     /// hence plain sweeps there.
     pub relaxation: Option<f64>,
+    /// Anderson extrapolation of the inner sweeps: every this many sweeps, the last
+    /// iterates are combined into a candidate that is kept only where it lowers the
+    /// penalised quadratic model (see `extrapolation`); 0 disables it. Only loops that
+    /// run past 2K sweeps with more than `newton_block_max` active coordinates are
+    /// extrapolated (smaller stalled loops get the subspace Newton step). Default 5.
+    pub extrapolation: usize,
 }
 
 impl CdOptions {
@@ -137,6 +149,7 @@ impl Default for CdOptions {
             relaxation: None,
             first_step_working_set: true,
             adaptive_forcing: true,
+            extrapolation: 5,
         }
     }
 }
@@ -372,6 +385,7 @@ impl NewtonCd {
                 &mut target,
                 self.forcing(agreement) * kkt,
                 &self.cd,
+                self.cd.newton_block_max,
             );
             inner_total += sweep.count;
 
