@@ -75,15 +75,22 @@ fn spector_logit_mle() {
     assert_eq!(sol.status, Status::Converged);
 }
 
-/// The lasso fixtures (macrodata, solved by a general conic solver and polished; see
-/// tests/data/README.md): objective within 1e-8 relative, same support.
-#[test]
-fn macrodata_lasso_fixtures() {
+/// The macrodata lasso problem (least squares with intercept) and its fixture rows
+/// (see tests/data/README.md).
+fn macrodata_lasso() -> (LeastSquares, ndarray::Array2<f64>) {
     let (_, x) = read_numeric_table("macrodata-lasso-X.csv");
     let (_, y) = read_numeric_table("macrodata-lasso-y.csv");
     let y: Vec<f64> = y.column(0).to_vec();
     let loss = LeastSquares::from_dense(x.view(), &y, true).unwrap();
     let (_, sols) = read_numeric_table("macrodata-lasso-solutions.csv");
+    (loss, sols)
+}
+
+/// The lasso fixtures (macrodata, solved by a general conic solver and polished; see
+/// tests/data/README.md): objective within 1e-8 relative, same support.
+#[test]
+fn macrodata_lasso_fixtures() {
+    let (loss, sols) = macrodata_lasso();
     for row in sols.rows() {
         let lambda = row[1];
         let reference = row[2];
@@ -119,11 +126,7 @@ fn macrodata_lasso_fixtures() {
 #[test]
 fn macrodata_lasso_sweeps_only_with_and_without_extrapolation() {
     use ellone::solver::newton_cd::CdOptions;
-    let (_, x) = read_numeric_table("macrodata-lasso-X.csv");
-    let (_, y) = read_numeric_table("macrodata-lasso-y.csv");
-    let y: Vec<f64> = y.column(0).to_vec();
-    let loss = LeastSquares::from_dense(x.view(), &y, true).unwrap();
-    let (_, sols) = read_numeric_table("macrodata-lasso-solutions.csv");
+    let (loss, sols) = macrodata_lasso();
     let solver = |extrapolation: usize| NewtonCd {
         options: SolverOptions {
             tol: 1e-10,
