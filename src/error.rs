@@ -171,11 +171,17 @@ pub(crate) fn check_allocation(rows: usize, cols: usize, what: &str) -> Result<(
 
 /// Checks that a regularisation parameter is finite and non-negative.
 pub(crate) fn check_lambda(name: &str, value: f64) -> Result<()> {
+    check_lambda_named(|| name.to_string(), value)
+}
+
+/// [`check_lambda`] for a name built from an index: `name` runs only when the check fails,
+/// so per-coordinate checks in loops over millions of coordinates format nothing.
+pub(crate) fn check_lambda_named(name: impl FnOnce() -> String, value: f64) -> Result<()> {
     if value.is_finite() && value >= 0.0 {
         Ok(())
     } else {
         Err(Error::InvalidLambda {
-            name: name.to_string(),
+            name: name(),
             value,
         })
     }

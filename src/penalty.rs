@@ -12,7 +12,7 @@
 //! unpenalised diagonal, 2 for an off-diagonal entry of a symmetric matrix stored once.
 //! The ℓ2 term applies to every coordinate the loss calls penalisable (c_k > 0).
 
-use crate::error::{check_lambda, Error, Result};
+use crate::error::{check_lambda, check_lambda_named, Error, Result};
 
 /// Soft-thresholding, the proximal operator of t·|·|:
 /// `S(z, t) = sign(z) · max(|z| − t, 0)`.
@@ -93,7 +93,7 @@ impl Penalty {
     /// [`Error::InvalidLambda`] for a negative or non-finite weight.
     pub fn with_weights(mut self, weights: Vec<f64>) -> Result<Self> {
         for (k, &w) in weights.iter().enumerate() {
-            check_lambda(&format!("weight[{k}]"), w)?;
+            check_lambda_named(|| format!("weight[{k}]"), w)?;
         }
         self.weights = Some(weights);
         Ok(self)
@@ -185,7 +185,7 @@ impl ResolvedPenalty {
         for k in 0..dim {
             let c = factor(k);
             let lambda_k = penalty.lambda * penalty.weight(k) * c;
-            check_lambda(&format!("λ·weight·factor of coordinate {k}"), lambda_k)?;
+            check_lambda_named(|| format!("λ·weight·factor of coordinate {k}"), lambda_k)?;
             l1.push(lambda_k);
             l2.push(if c > 0.0 { penalty.l2 } else { 0.0 });
         }
@@ -264,7 +264,11 @@ mod tests {
         ));
         let p = Penalty::l1(1.0).unwrap();
         assert!(p.clone().with_l2(-0.1).is_err());
-        assert!(p.clone().with_weights(vec![1.0, -2.0]).is_err());
+        // The offending coordinate is named (the name is built only on failure).
+        assert!(matches!(
+            p.clone().with_weights(vec![1.0, -2.0]),
+            Err(Error::InvalidLambda { name, value }) if name == "weight[1]" && value == -2.0
+        ));
         let p = p.with_weights(vec![1.0, 2.0]).unwrap();
         assert!(matches!(p.check_dim(3), Err(Error::ShapeMismatch { .. })));
         // λ·w overflowing to ∞, and a negative structural factor.
@@ -276,7 +280,10 @@ mod tests {
             ResolvedPenalty::new(&huge, 2, |_| 1.0),
             Err(Error::InvalidLambda { .. })
         ));
-        assert!(ResolvedPenalty::new(&p, 2, |k| if k == 1 { -1.0 } else { 1.0 }).is_err());
+        assert!(matches!(
+            ResolvedPenalty::new(&p, 2, |k| if k == 1 { -1.0 } else { 1.0 }),
+            Err(Error::InvalidLambda { name, .. }) if name == "λ·weight·factor of coordinate 1"
+        ));
         // Deserialising runs the builders' checks.
         let ok: Penalty =
             serde_json::from_str(r#"{"lambda":0.5,"weights":[1.0,0.0],"l2":0.1}"#).unwrap();

@@ -55,7 +55,7 @@
 //! not positive definite, and a fit in such a block that stops as converged or with a failed
 //! line search, without a duality gap, is returned as [`Error::Unbounded`].
 
-use crate::error::{check_lambda, Error, Result};
+use crate::error::{check_lambda, check_lambda_named, Error, Result};
 use crate::linalg;
 use crate::loss::precision::{validate_covariance, LogDet};
 use crate::loss::Loss;
@@ -328,7 +328,7 @@ fn validate_weights(w: ArrayView2<f64>, p: usize) -> Result<Array2<f64>> {
         });
     }
     for ((i, j), &v) in w.indexed_iter() {
-        check_lambda(&format!("weight[{i}, {j}]"), v)?;
+        check_lambda_named(|| format!("weight[{i}, {j}]"), v)?;
     }
     for i in 0..p {
         for j in 0..i {

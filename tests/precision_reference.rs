@@ -320,6 +320,18 @@ fn bad_input_is_rejected_with_typed_errors() {
         est(&s, f64::NAN, &d),
         Err(Error::InvalidLambda { .. })
     ));
+    // A negative weight is named by its entry.
+    let mut w = Array2::from_elem(s.dim(), 1.0);
+    w[[3, 1]] = -0.5;
+    w[[1, 3]] = -0.5;
+    let weighted = PrecisionOptions {
+        weights: Some(w),
+        ..PrecisionOptions::default()
+    };
+    assert!(matches!(
+        est(&s, 0.1, &weighted),
+        Err(Error::InvalidLambda { name, .. }) if name == "weight[1, 3]"
+    ));
     // Data with NaN, and an empty data matrix.
     let mut x = read_numeric_table("macrodata.csv").1;
     x[[7, 3]] = f64::NAN;
