@@ -14,11 +14,12 @@
 //!
 //! For a linear map z ← M z + f the extrapolation error is M p(M) e_0 with p a polynomial of
 //! degree K − 1 and p(1) = 1, so K differences cancel up to K − 1 distinct persistent error
-//! directions (eigenvalues of M) exactly. The extrapolated point is only a *candidate*: the caller evaluates the penalised
-//! model there and keeps it only when it is lower than at the current iterate, so an
-//! extrapolation can never make the inner loop worse (the "guarded" variant of the 2021
-//! paper). The small system is solved by a Cholesky factorisation with a relative ridge
-//! (10⁻¹⁰ of the largest diagonal entry: near-parallel differences make UᵀU singular).
+//! directions (eigenvalues of M) exactly. The extrapolated point is only a *candidate*: the
+//! caller evaluates the penalised model there and keeps it only when it is lower than at the
+//! current iterate, so an extrapolation can never make the inner loop worse (the "guarded"
+//! variant of the 2021 paper). The small system is solved by a Cholesky factorisation with
+//! a relative ridge (10⁻¹⁰ of the largest diagonal entry: near-parallel differences make UᵀU
+//! singular).
 
 /// The history of inner iterates and the extrapolation rule (see the module docs).
 pub(crate) struct Extrapolation {
