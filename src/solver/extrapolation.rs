@@ -17,9 +17,9 @@
 //! directions (eigenvalues of M) exactly. The extrapolated point is only a *candidate*: the
 //! caller evaluates the penalised model there and keeps it only when it is lower than at the
 //! current iterate, so an extrapolation can never make the inner loop worse (the "guarded"
-//! variant of the 2021 paper). The small system is solved by a Cholesky factorisation with
-//! a relative ridge (10⁻¹⁰ of the largest diagonal entry: near-parallel differences make UᵀU
-//! singular).
+//! variant of the 2021 paper). The small system is solved by the crate's Cholesky
+//! factorisation (`linalg`) with a relative ridge (10⁻¹⁰ of the largest diagonal entry:
+//! near-parallel differences make UᵀU singular).
 
 /// The history of inner iterates and the extrapolation rule (see the module docs).
 pub(crate) struct Extrapolation {
@@ -71,23 +71,21 @@ fn combine(z: &[Vec<f64>]) -> Option<Vec<f64>> {
     let u: Vec<Vec<f64>> = (0..k)
         .map(|i| (0..m).map(|j| z[i + 1][j] - z[i][j]).collect())
         .collect();
-    // Gram matrix UᵀU (row-major k × k).
-    let mut gram = vec![0.0; k * k];
+    // Gram matrix UᵀU (k × k).
+    let mut gram = ndarray::Array2::<f64>::zeros((k, k));
     for a in 0..k {
         for b in a..k {
             let v = crate::kernels::dot(&u[a], &u[b]);
-            gram[a * k + b] = v;
-            gram[b * k + a] = v;
+            gram[[a, b]] = v;
+            gram[[b, a]] = v;
         }
     }
-    let top = (0..k).fold(0.0f64, |t, a| t.max(gram[a * k + a]));
+    let top = gram.diag().fold(0.0f64, |t, &v| t.max(v));
     if !(top > 0.0 && top.is_finite()) {
         return None;
     }
-    for a in 0..k {
-        gram[a * k + a] += RIDGE * top;
-    }
-    let y = solve_spd(&mut gram, k, vec![1.0; k])?;
+    gram.diag_mut().mapv_inplace(|v| v + RIDGE * top);
+    let y = crate::linalg::cholesky(gram.view())?.apply_inverse(&vec![1.0; k]);
     let sum: f64 = y.iter().sum();
     if !(sum.is_finite() && sum != 0.0) {
         return None;
@@ -100,45 +98,6 @@ fn combine(z: &[Vec<f64>]) -> Option<Vec<f64>> {
         }
     }
     out.iter().all(|v| v.is_finite()).then_some(out)
-}
-
-/// Solves A y = b for a small symmetric positive-definite `a` (row-major n × n, overwritten
-/// by its Cholesky factor); `None` when a pivot is not positive.
-fn solve_spd(a: &mut [f64], n: usize, mut b: Vec<f64>) -> Option<Vec<f64>> {
-    for j in 0..n {
-        let mut d = a[j * n + j];
-        for p in 0..j {
-            d -= a[j * n + p] * a[j * n + p];
-        }
-        if !(d > 0.0 && d.is_finite()) {
-            return None;
-        }
-        let d = d.sqrt();
-        a[j * n + j] = d;
-        for i in j + 1..n {
-            let mut v = a[i * n + j];
-            for p in 0..j {
-                v -= a[i * n + p] * a[j * n + p];
-            }
-            a[i * n + j] = v / d;
-        }
-    }
-    // L w = b, then Lᵀ y = w.
-    for i in 0..n {
-        let mut v = b[i];
-        for p in 0..i {
-            v -= a[i * n + p] * b[p];
-        }
-        b[i] = v / a[i * n + i];
-    }
-    for i in (0..n).rev() {
-        let mut v = b[i];
-        for p in i + 1..n {
-            v -= a[p * n + i] * b[p];
-        }
-        b[i] = v / a[i * n + i];
-    }
-    Some(b)
 }
 
 #[cfg(test)]
@@ -186,13 +145,17 @@ mod tests {
         assert!(out.is_none());
     }
 
+    /// The small system goes through the crate's Cholesky (`linalg`); the hand-solved
+    /// case it relies on, and the refusal of an indefinite Gram matrix.
     #[test]
     fn small_spd_solve_matches_a_hand_computed_system() {
         // [4 2; 2 3] y = [2, 1]: y = [0.5, 0] (exact in binary).
-        let mut a = vec![4.0, 2.0, 2.0, 3.0];
-        let y = solve_spd(&mut a, 2, vec![2.0, 1.0]).unwrap();
+        let a = ndarray::array![[4.0, 2.0], [2.0, 3.0]];
+        let y = crate::linalg::cholesky(a.view())
+            .unwrap()
+            .apply_inverse(&[2.0, 1.0]);
         assert!((y[0] - 0.5).abs() < 1e-15 && y[1].abs() < 1e-15);
-        let mut bad = vec![1.0, 2.0, 2.0, 1.0];
-        assert!(solve_spd(&mut bad, 2, vec![1.0, 1.0]).is_none());
+        let bad = ndarray::array![[1.0, 2.0], [2.0, 1.0]];
+        assert!(crate::linalg::cholesky(bad.view()).is_none());
     }
 }

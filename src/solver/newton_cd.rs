@@ -25,7 +25,7 @@
 //!    kept only where it lowers the penalised model (see `extrapolation`): on an
 //!    ill-conditioned Gaussian CRF (inputs with lag-one correlation 0.999) this cut the
 //!    outer iterations 2.3–2.9-fold and the time 2.7–3.5-fold; on the unscaled macrodata
-//!    lasso with the subspace step off, the sweeps 22-fold.
+//!    lasso with the subspace step off, the sweeps 19-fold.
 //! 4. Subspace Newton step: if the sweeps stall (ill-conditioned H) and the active set
 //!    A = {k ∈ F : x_k + d_k ≠ 0} is small, solve the reduced Newton system
 //!    `H_AA d_A = −(g_A + λ_A ∘ sign(x_A + d_A))` by Cholesky and use it when it keeps the
